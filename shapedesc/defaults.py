@@ -25,6 +25,29 @@ DEFAULT_DEGREE: int = 15
 # --------------------------------------------------------------------------- sphere
 
 # --------------------------------------------------------------------------- descriptors
+#: Nearest face centroids examined per query in point-to-mesh distances (count).
+#: 16 makes the query exact on the near-uniform meshes used here (checked against a
+#: brute-force search in tests/test_mesh_distance.py).
+DISTANCE_CANDIDATE_FACES: int = 16
+
+#: Scale normalisations offered for descriptors: none, cube root of the enclosed volume,
+#: square root of the surface area.
+SCALE_CHOICES: tuple[str, ...] = ("none", "volume", "area")
+DEFAULT_SCALE: str = "volume"
+
+#: Two first-order ellipsoid semi-axes closer than this relative difference make the
+#: canonical rotation unstable (dimensionless); 5 % is common practice for the
+#: first-order-ellipsoid alignment of Brechbühler et al. 1995.
+POSE_AXIS_TOLERANCE: float = 0.05
+
+#: Relative third moment below which an axis's sign is called ambiguous (dimensionless).
+POSE_SKEW_TOLERANCE: float = 1e-3
+
+#: Subdivision level of the icosahedron that the reconstructions and QC measures use
+#: (level 4: 2,562 vertices; level 5: 10,242).
+DEFAULT_ICOSPHERE_LEVEL: int = 4
+#: Level used to measure volume/area of a fitted surface (10,242 vertices).
+MEASURE_ICOSPHERE_LEVEL: int = 5
 
 # --------------------------------------------------------------------------- stats
 #: Default number of permutations for permutation tests.
