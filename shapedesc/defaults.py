@@ -52,3 +52,59 @@ MEASURE_ICOSPHERE_LEVEL: int = 5
 # --------------------------------------------------------------------------- stats
 #: Default number of permutations for permutation tests.
 DEFAULT_PERMUTATIONS: int = 5000
+
+#: Smallest number of subjects a group may have in a comparison (subjects). Below three
+#: a group's variance rests on one degree of freedom (common practice).
+MIN_GROUP_SIZE: int = 3
+
+#: Relative singular-value threshold under which a design matrix (columns scaled to unit
+#: length) counts as rank deficient, i.e. its covariates as collinear (dimensionless;
+#: common practice, about 1e4 times float64 machine epsilon).
+COLLINEARITY_TOLERANCE: float = 1e-12
+
+#: Memory budget for one block of permutations in the vectorised permutation engine
+#: (bytes); blocks of permutations are sized to stay under it.
+PERMUTATION_BLOCK_BYTES: int = 64 * 1024**2
+
+#: Family-wise / false-discovery level used to flag results (probability).
+DEFAULT_ALPHA: float = 0.05
+
+#: Bootstrap resamples for effect-size confidence intervals (Efron & Tibshirani,
+#: An Introduction to the Bootstrap, 1993, ch. 13: 1,000-2,000 for percentile intervals).
+DEFAULT_BOOTSTRAP: int = 2000
+
+#: Coverage of effect-size confidence intervals (probability).
+DEFAULT_CONFIDENCE: float = 0.95
+
+#: ComBat empirical-Bayes iteration: stop when the largest relative change of the site
+#: location and scale estimates falls below this (dimensionless). Johnson, Li & Rabinovic,
+#: Biostatistics 2007, doi:10.1093/biostatistics/kxj037 (their reference code uses 1e-4).
+COMBAT_CONVERGENCE: float = 1e-4
+
+#: ComBat empirical-Bayes iteration cap (iterations); convergence takes tens.
+COMBAT_MAX_ITERATIONS: int = 1000
+
+#: Cross-validation folds for group classification (folds; common practice).
+DEFAULT_CV_FOLDS: int = 5
+
+#: Label permutations for the classification AUC permutation p-value (permutations);
+#: each costs one full cross-validation, hence fewer than the GLM default
+#: (Ojala & Garriga, JMLR 2010, use 1,000).
+DEFAULT_CLASSIFICATION_PERMUTATIONS: int = 1000
+
+#: Inverse regularisation strength of the logistic-regression classifier on standardised
+#: descriptors (dimensionless; scikit-learn's default).
+CLASSIFIER_C: float = 1.0
+
+#: Shape-space modes reported by PCA (modes) and the spread of the mode surfaces
+#: (standard deviations along each mode; common practice).
+DEFAULT_PCA_MODES: int = 5
+PCA_MODE_SD: float = 2.0
+
+#: Degrees tested by ``shapedesc compare`` when none are given: 2 .. DEFAULT_DEGREE
+#: (degree 0 is position, degree 1 the ellipsoid that fixes pose and scale).
+DEFAULT_FIRST_TEST_DEGREE: int = 2
+
+#: Icosphere subdivision level of the correspondence sphere for point-wise tests
+#: (level 4: 2,562 vertices).
+DEFAULT_VERTEX_LEVEL: int = 4
