@@ -19,10 +19,125 @@ DEFAULT_SEED: int = 20261201
 # --------------------------------------------------------------------------- harmonics
 #: Default maximum degree of the shape expansion for subcortical-sized structures.
 DEFAULT_DEGREE: int = 15
+#: Largest degree ``describe`` accepts (the basis itself is tested to 200).
+MAX_DEGREE: int = 120
+#: Sphere positions may differ from unit length by this much before they are refused
+#: (dimensionless). Float32 storage of a unit vector errs by ~1e-7; 1e-6 admits that
+#: and still catches millimetre coordinates passed by mistake (common practice).
+UNIT_VECTOR_TOL: float = 1e-6
+#: A 3x3 matrix counts as a rotation when max|R^T R - I| is below this (dimensionless);
+#: matrices built in float64 from angles are orthogonal to ~1e-15 (common practice).
+ROTATION_ORTHOGONALITY_TOL: float = 1e-8
+#: Memory budget of one chunk of basis rows in least-squares fits and evaluation
+#: (bytes). 64 MiB keeps the 150,000-point, degree-40 fit far below 1 GB while the
+#: BLAS calls stay large enough to run at full speed (measured, benchmarks/harmonics_fit.py).
+SH_CHUNK_BYTES: int = 64 * 1024**2
+#: Normal equations whose Jacobi-scaled reciprocal condition number (LAPACK dpocon) is
+#: below this are solved by eigen-decomposition instead of Cholesky (dimensionless).
+#: Cholesky on normal equations loses ~cond·eps relative accuracy, so 1e-10 still leaves
+#: ~1e-6 (common practice).
+FIT_RCOND_MIN: float = 1e-10
+#: In the eigen-decomposition fallback, eigenvalues below this fraction of the largest
+#: are treated as zero (minimum-norm solution, dimensionless; ~1e4·eps, common practice).
+FIT_EIG_RTOL: float = 1e-12
+#: Coefficients of a real-valued function, converted complex -> real, may carry an
+#: imaginary part of this size relative to the largest coefficient before the input is
+#: refused as not real-valued (dimensionless; a few hundred eps, common practice).
+SH_REAL_IMAG_TOL: float = 1e-12
+#: Tikhonov weight of the shape fit (dimensionless, relative to the weighted data
+#: term). 0: the area-weighted least-squares problem is well posed on our maps.
+FIT_TIKHONOV: float = 0.0
 
 # --------------------------------------------------------------------------- mesh
+#: Vertices closer than this (per coordinate, after rounding to a grid of this step) are
+#: duplicates and are merged (mm). 1e-5 mm is about the float32 resolution of
+#: coordinates 100-150 mm from the origin, so copies of one point stored as float32
+#: (STL, GIFTI) merge, while no anatomical mesh has distinct vertices this close
+#: (common practice; trimesh merges on a rounded grid in the same way).
+MERGE_TOLERANCE_MM: float = 1e-5
+
+#: A face whose area is below this fraction of the squared bounding-box diagonal is
+#: degenerate (dimensionless). 1e-12 of (100 mm)² is 1e-8 mm²: only faces collapsed to
+#: a line or point, never a genuine small triangle (common practice).
+DEGENERATE_FACE_REL_AREA: float = 1e-12
+
+#: Largest boundary loop (in edges) that ``repair_mesh(fill_holes=True)`` closes
+#: (edges). Small gaps such as a missing triangle or two; larger holes are refused
+#: because filling them invents anatomy (common practice).
+MAX_HOLE_EDGES: int = 16
+
+#: Fewest vertices of a closed triangle surface (a tetrahedron has 4).
+MIN_SURFACE_VERTICES: int = 4
+
+# -- label volume -> genus-0 surface (shapedesc.mesh.topology, shapedesc.mesh.volume)
+#: Object adjacency of the digital-topology pair (26 -> pair (26, 6); 6 -> (6, 26)).
+#: (26, 6) is the pair under which thresholded anatomy has the fewest handles (27 vs
+#: 177 for the template's left white matter, measured in tests/test_mesh_volume.py).
+OBJECT_CONNECTIVITY: int = 26
+
+#: Marching-cubes iso-levels on the 0/1 voxel array for each pair (dimensionless).
+#: Trilinear interpolation of binary corner values puts the saddle of a face with two
+#: diagonal object corners at 1/2 and the centre of a cube with two body-diagonal
+#: corners at 1/4 (closed forms), so a level in (0, 1/4) joins object voxels across
+#: faces, edges and corners = (26, 6), and a level in (3/4, 1) = (6, 26).  1/8 and 7/8
+#: sit mid-way, far from the ties at 1/4, 1/2, 3/4; the pairing is checked exhaustively
+#: in tests/test_mesh_topology.py (skimage's 'lewiner' method).
+MARCHING_CUBES_LEVEL: dict = {26: 0.125, 6: 0.875}
+
+#: Number of evidence bands (quantiles) the simple-point growth proceeds in (count).
+#: Measured on the template's hemisphere white matter: 24 bands follow the evidence
+#: closely enough that more bands change fewer than 1 in 10^4 voxels, at a third of the
+#: passes of 64 bands.
+TOPOLOGY_EVIDENCE_BANDS: int = 24
+
+#: Default Taubin smoothing iterations after marching cubes (count; 0 = none), with
+#: lambda = 0.5, mu = -0.53 (Taubin, SIGGRAPH 1995, doi:10.1145/218380.218473: pass-band
+#: k_PB = 1/lambda + 1/mu ~ 0.1, the values of the paper's examples).
+SMOOTHING_ITERATIONS: int = 10
+TAUBIN_LAMBDA: float = 0.5
+TAUBIN_MU: float = -0.53
 
 # --------------------------------------------------------------------------- sphere
+#: Lower clamp of the cotangent edge weights, as a fraction of the mean weight
+#: (dimensionless). Keeps every weight positive so the harmonic initial map is an
+#: embedding (Floater 2003, doi:10.1090/S0025-5718-02-01466-7); 1e-3 changes only
+#: non-Delaunay edges and keeps the matrix well conditioned (common practice).
+SPHERE_COT_CLAMP: float = 1e-3
+
+#: Fraction of the vertices, those nearest the pole opposite the puncture, held fixed in
+#: the quasi-conformal pole correction (Choi, Lam & Lui 2015, doi:10.1137/130950008,
+#: who use 1/10).
+SPHERE_POLE_FIXED_FRACTION: float = 0.1
+
+#: Stop Möbius centring when the area-weighted centre is this close to the origin
+#: (unit-sphere radii); Newton converges quadratically, so 1e-12 costs one extra step.
+SPHERE_MOBIUS_TOL: float = 1e-12
+#: Largest number of Newton steps of the Möbius centring (Baden, Crane & Kazhdan 2018,
+#: doi:10.1111/cgf.13495, report convergence in a handful of steps).
+SPHERE_MOBIUS_MAX_ITER: int = 100
+
+#: Default balance between the shear (MIPS conformal) term and the area term of the
+#: area-correction energy (dimensionless; 0 = area only). Chosen on the synthetic test
+#: shapes so that elongated shapes (6:1) reach area-distortion SD <= 0.10 with mean
+#: angle distortion <= 20 degrees (measured, benchmarks/sphere_map.py).
+SPHERE_SHEAR_WEIGHT: float = 0.1
+#: Area correction stops when the energy decreased by less than this fraction over the
+#: last ``SPHERE_AREA_STALL_WINDOW`` iterations (dimensionless).
+SPHERE_AREA_REL_TOL: float = 1e-6
+#: Window (iterations) of the stall test above.
+SPHERE_AREA_STALL_WINDOW: int = 10
+#: Iteration budget of the area correction; reaching it without meeting the stall test
+#: raises ConvergenceError (iterations).
+SPHERE_AREA_MAX_ITER: int = 3000
+#: L-BFGS memory (pairs); 5–20 is the usual range (Nocedal & Wright 2006, §7.2).
+SPHERE_LBFGS_MEMORY: int = 10
+#: Mass regularisation of the Laplacian preconditioner ``L + eps*M`` of the area
+#: correction, relative to the mean diagonal of L over the mean vertex area
+#: (dimensionless); small so that L dominates, nonzero so the matrix is invertible.
+SPHERE_PRECOND_MASS: float = 1e-2
+#: A triangle counts as flipped when det(a, b, c) of its unit-sphere vertices is below
+#: this (unit-sphere volume units); 0 is the exact orientation test.
+SPHERE_FLIP_DET: float = 0.0
 
 # --------------------------------------------------------------------------- descriptors
 #: Nearest face centroids examined per query in point-to-mesh distances (count).
@@ -49,6 +164,50 @@ DEFAULT_ICOSPHERE_LEVEL: int = 4
 #: Level used to measure volume/area of a fitted surface (10,242 vertices).
 MEASURE_ICOSPHERE_LEVEL: int = 5
 
+# --------------------------------------------------------------------------- figures
+#: Resolution of raster figure output (dots per inch). 300 dpi is the usual minimum
+#: journals ask for in half-tone figures (common practice).
+FIGURE_DPI: int = 300
+
+#: Resolution of the images embedded in the HTML report (dots per inch). Screen use;
+#: keeps the single-file report small (common practice).
+REPORT_DPI: int = 110
+
+#: Significance level used to mark corrected-significant degrees and regions in
+#: figures (family-wise or FDR-corrected p below this). 0.05 (common practice).
+FIGURE_ALPHA: float = 0.05
+
+#: Ambient and diffuse weights of the Lambert shading of surface renders (unitless,
+#: sum 1 so a face turned to the light keeps its full colour; common practice).
+SURFACE_AMBIENT: float = 0.35
+SURFACE_DIFFUSE: float = 0.65
+
+#: Multiple of the standard deviation shown for shape-space modes (mean +/- 2 SD,
+#: common practice).
+MODE_SD_MULTIPLE: float = 2.0
+
+# --------------------------------------------------------------------------- pipeline
+#: Significant digits of floats in the result tables (digits). Twelve keep far more than
+#: any descriptor's accuracy and hide last-bit noise, so reruns and parallel runs write
+#: byte-identical tables (common practice for reproducible text tables).
+TABLE_FLOAT_DIGITS: int = 12
+
+#: Text written for a missing value in a TSV table (the BIDS convention for n/a cells,
+#: BIDS specification 1.9, "Tabular files").
+TABLE_MISSING: str = "n/a"
+
+#: Exit status of ``shapedesc describe`` is the number of failed subject x structure items,
+#: capped here so it stays a valid process status (0-255) and is not mistaken for a
+#: signal (128+n) (count; common practice).
+MAX_EXIT_FAILURES: int = 100
+
+#: Seconds between plain progress log lines when the output is not a terminal (s).
+PROGRESS_LOG_INTERVAL_S: float = 10.0
+
+#: Pattern a subject id or structure name must match: it becomes part of a file name
+#: (``coefficients/<subject>_<structure>.npz``), so no path separators or blanks.
+SAFE_NAME_PATTERN: str = r"^[A-Za-z0-9][A-Za-z0-9._+-]*$"
+
 # --------------------------------------------------------------------------- stats
 #: Default number of permutations for permutation tests.
 DEFAULT_PERMUTATIONS: int = 5000
@@ -65,6 +224,11 @@ COLLINEARITY_TOLERANCE: float = 1e-12
 #: Memory budget for one block of permutations in the vectorised permutation engine
 #: (bytes); blocks of permutations are sized to stay under it.
 PERMUTATION_BLOCK_BYTES: int = 64 * 1024**2
+
+#: Relative tolerance under which a permuted statistic counts as equal to the observed
+#: one when counting exceedances (dimensionless). The identity permutation reproduces the
+#: observed statistic only to rounding; scipy.stats.permutation_test uses the same idea.
+PERMUTATION_TIE_RTOL: float = 1e-12
 
 #: Family-wise / false-discovery level used to flag results (probability).
 DEFAULT_ALPHA: float = 0.05
@@ -104,7 +268,3 @@ PCA_MODE_SD: float = 2.0
 #: Degrees tested by ``shapedesc compare`` when none are given: 2 .. DEFAULT_DEGREE
 #: (degree 0 is position, degree 1 the ellipsoid that fixes pose and scale).
 DEFAULT_FIRST_TEST_DEGREE: int = 2
-
-#: Icosphere subdivision level of the correspondence sphere for point-wise tests
-#: (level 4: 2,562 vertices).
-DEFAULT_VERTEX_LEVEL: int = 4
