@@ -1,0 +1,320 @@
+"""Describe a whole study: every subject x structure of a manifest, resumably, in parallel.
+
+:func:`run_study` hashes the inputs, takes what the cache already holds, runs the rest
+in the calling process (``jobs=1``), in local worker processes (``jobs>1``,
+:class:`concurrent.futures.ProcessPoolExecutor` with the ``spawn`` start method and one
+BLAS thread per worker) or on a Dask distributed cluster (``scheduler=ADDRESS``, the
+optional extra ``shapedesc[dask]``), stores each result in the cache the moment it
+arrives, and finally writes the tables.  A bad subject becomes a row of ``failures.tsv``
+and the others go on.  The tables do not depend on which executor ran the work.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import multiprocessing
+from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor, as_completed
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Callable
+
+from shapedesc import __version__
+from shapedesc.defaults import DEFAULT_DEGREE, MAX_EXIT_FAILURES
+from shapedesc.pipeline.cache import CACHE_DIRNAME, ResultCache, item_key, sha256_file
+from shapedesc.pipeline.manifest import Manifest
+from shapedesc.pipeline.outputs import (
+    COEFFICIENTS, DESCRIPTION, RUN_JSON, build_tables, check_outdir, dataset_description,
+    dependency_versions, write_coefficient_files, write_json, write_tsv,
+)
+from shapedesc.pipeline.work import compute_item, init_worker
+
+__all__ = ["DescribeParameters", "ProgressEvent", "StudyRun", "run_study", "exit_status"]
+
+logger = logging.getLogger(__name__)
+
+SCALES = ("none", "volume", "area")
+
+
+@dataclass(frozen=True)
+class DescribeParameters:
+    """Everything that shapes a result; recorded in run.json and in every cache key.
+
+    Attributes
+    ----------
+    degree : int
+        Largest spherical-harmonic degree L (tables get columns l1 .. lL).
+    scale : {"none", "volume", "area"}
+        Scale normalisation: none, cube root of the volume, square root of the area.
+    smoothing : float
+        Heat-kernel smoothing bandwidth of the fit (0: none).
+    volume_smoothing_iterations : int or None
+        Smoothing iterations of the label-volume surface (None: that module's default).
+    target_vertices : int or None
+        Vertex count the label-volume surface is decimated to (None: no decimation).
+    """
+
+    degree: int = DEFAULT_DEGREE
+    scale: str = "volume"
+    smoothing: float = 0.0
+    volume_smoothing_iterations: int | None = None
+    target_vertices: int | None = None
+
+    def __post_init__(self):
+        if isinstance(self.degree, bool) or not isinstance(self.degree, int) or self.degree < 1:
+            raise ValueError(f"degree must be a positive integer, got {self.degree!r}")
+        try:
+            from shapedesc.defaults import MAX_DEGREE
+        except ImportError:  # pragma: no cover - the harmonics section defines it
+            MAX_DEGREE = 10**6
+        if self.degree > MAX_DEGREE:
+            raise ValueError(f"degree {self.degree} is above the largest supported, "
+                             f"{MAX_DEGREE}")
+        if self.scale not in SCALES:
+            raise ValueError(f"scale must be one of {SCALES}, got {self.scale!r}")
+        s = float(self.smoothing)
+        if not math.isfinite(s) or s < 0:
+            raise ValueError(f"smoothing must be a finite number >= 0, got {self.smoothing!r}")
+        object.__setattr__(self, "smoothing", s)
+        for name in ("volume_smoothing_iterations", "target_vertices"):
+            v = getattr(self, name)
+            if v is not None and (isinstance(v, bool) or not isinstance(v, int) or v < 0):
+                raise ValueError(f"{name} must be a non-negative integer or None, got {v!r}")
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class ProgressEvent:
+    """One step of a run, for progress display: ``done`` of ``total`` items finished."""
+
+    done: int
+    total: int
+    failed: int
+    name: str
+    status: str  # "cached" (a batch of cached items), "ok", "failed"
+    count: int = 1
+
+
+@dataclass(frozen=True)
+class StudyRun:
+    """What a run did.
+
+    Attributes
+    ----------
+    outdir : Path
+    n_items : int
+        Subject x structure items in the manifest.
+    n_cached : int
+        Items taken from the cache (computed by an earlier run).
+    n_computed : int
+        Items computed now (successes and failures).
+    n_failed : int
+        Items that failed (rows of failures.tsv).
+    failures : tuple of dict
+        The failures.tsv rows.
+    """
+
+    outdir: Path
+    n_items: int
+    n_cached: int
+    n_computed: int
+    n_failed: int
+    failures: tuple[dict, ...] = field(default=())
+
+    @property
+    def exit_status(self) -> int:
+        return exit_status(self.n_failed)
+
+
+def exit_status(n_failed: int) -> int:
+    """Process exit status: the number of failed items, capped at MAX_EXIT_FAILURES."""
+    return min(int(n_failed), MAX_EXIT_FAILURES)
+
+
+def _hash_inputs(paths: tuple[str, ...]) -> dict[str, str | Exception]:
+    out: dict[str, str | Exception] = {}
+    # hashlib releases the GIL on large buffers: a few threads keep the disk busy.
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        futures = {pool.submit(sha256_file, p): p for p in paths}
+        for fut in as_completed(futures):
+            try:
+                out[futures[fut]] = fut.result()
+            except OSError as exc:
+                out[futures[fut]] = exc
+    return out
+
+
+def _run_json(params: dict, manifest: Manifest, hashes: dict, n_failed: int | None) -> dict:
+    inputs = {}
+    for it in manifest.items:
+        h = hashes.get(it.input)
+        inputs[it.input_display] = h if isinstance(h, str) else None
+    return {
+        "command": "describe",
+        "complete": n_failed is not None,
+        "parameters": params,
+        "shapedesc_version": __version__,
+        "dependencies": dependency_versions(),
+        "items": len(manifest.items),
+        "failed": n_failed,
+        "extra_columns": list(manifest.extra_columns),
+        "inputs": [{"path": k, "sha256": v} for k, v in sorted(inputs.items())],
+    }
+
+
+def _execute(tasks: list[dict], *, jobs: int, scheduler: str | None):
+    """Yield results of ``compute_item`` over ``tasks`` as they finish."""
+    if not tasks:
+        return
+    if scheduler is not None:
+        yield from _execute_dask(tasks, scheduler)
+        return
+    if jobs <= 1:
+        for task in tasks:
+            yield compute_item(task)
+        return
+    ctx = multiprocessing.get_context("spawn")
+    pool = ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=ctx,
+                               initializer=init_worker)
+    try:
+        futures = [pool.submit(compute_item, t) for t in tasks]
+        for fut in as_completed(futures):
+            yield fut.result()
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _execute_dask(tasks: list[dict], scheduler: str):
+    try:
+        from distributed import Client
+        from distributed import as_completed as dask_as_completed
+    except ImportError as exc:
+        raise RuntimeError("--scheduler needs Dask distributed: pip install "
+                           "'shapedesc[dask]'") from exc
+    try:
+        client = Client(scheduler, timeout=30, set_as_default=False)
+    except (OSError, TimeoutError) as exc:
+        raise RuntimeError(f"cannot reach the Dask scheduler at {scheduler} ({exc}); check "
+                           f"the address and that the scheduler runs") from exc
+    try:
+        futures = client.map(compute_item, tasks, key=[f"shapedesc-{t['key']}" for t in tasks],
+                             pure=False)
+        for fut in dask_as_completed(futures):
+            yield fut.result()
+    finally:
+        client.close()
+
+
+def run_study(manifest: Manifest, outdir: str | Path, *,
+              parameters: DescribeParameters | None = None, jobs: int = 1,
+              scheduler: str | None = None, force: bool = False,
+              progress: Callable[[ProgressEvent], None] | None = None) -> StudyRun:
+    """Describe every item of ``manifest`` into ``outdir``.
+
+    Parameters
+    ----------
+    manifest : Manifest
+        From :func:`~shapedesc.pipeline.manifest.read_manifest`,
+        :func:`~shapedesc.pipeline.manifest.manifest_from_files` or
+        :func:`~shapedesc.pipeline.bids.manifest_from_bids`.
+    outdir : path
+        Output folder (created).  See :mod:`shapedesc.pipeline.outputs` for its layout.
+    parameters : DescribeParameters, optional
+    jobs : int
+        Local worker processes (1: in this process).  Ignored with ``scheduler``.
+    scheduler : str, optional
+        Address of a Dask distributed scheduler (``tcp://host:8786``); the workers must
+        have shapedesc installed and see the input paths.
+    force : bool
+        Replace results made with other parameters.
+    progress : callable, optional
+        Called with a :class:`ProgressEvent` after each finished item.
+
+    Returns
+    -------
+    StudyRun
+
+    Raises
+    ------
+    OutputExistsError
+        OUTDIR holds inputs, a source dataset, or results of other parameters (no force).
+    """
+    parameters = parameters or DescribeParameters()
+    if isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
+        raise ValueError(f"jobs must be a positive integer, got {jobs!r}")
+    params = parameters.as_dict()
+    outdir = Path(outdir).resolve()
+    check_outdir(outdir, parameters=params, inputs=list(manifest.inputs), force=force)
+    outdir.mkdir(parents=True, exist_ok=True)
+    write_json(outdir / DESCRIPTION, dataset_description())
+    cache = ResultCache(outdir / CACHE_DIRNAME)
+
+    hashes = _hash_inputs(manifest.inputs)
+    write_json(outdir / RUN_JSON, _run_json(params, manifest, hashes, None))
+    keyed: list[tuple] = []
+    entries: dict[str, dict] = {}
+    failures: dict[str, dict] = {}
+    tasks: list[dict] = []
+    names: dict[str, str] = {}
+    for it in manifest.items:
+        h = hashes[it.input]
+        if not isinstance(h, str):
+            key = f"unhashed:{it.name}"
+            keyed.append((it, key))
+            failures[key] = {"stage": "hash", "error": " ".join(
+                f"{type(h).__name__}: {h}".split())}
+            continue
+        key = item_key(input_sha256=h, subject=it.subject, structure=it.structure,
+                       kind=it.kind, label=it.label, parameters=params, version=__version__)
+        keyed.append((it, key))
+        names[key] = it.name
+        entry = cache.get(key)
+        if entry is not None:
+            if entry["status"] == "ok":
+                # Rewrite the coefficient file if a crash came between the cache write
+                # and the file write, or coefficients/ was deleted (identical: skipped).
+                write_coefficient_files(outdir, it.name, ResultCache.files(entry))
+                entries[key] = {"status": "ok", "rows": entry["rows"]}
+            else:
+                failures[key] = entry
+            continue
+        tasks.append({"key": key, "subject": it.subject, "structure": it.structure,
+                      "input": it.input, "kind": it.kind, "label": it.label,
+                      "parameters": params})
+    total = len(keyed)
+    done = total - len(tasks)
+    n_cached = done - sum(1 for k in failures if k.startswith("unhashed:"))
+    logger.info("%d item(s): %d from the cache, %d to compute%s", total, n_cached,
+                len(tasks), f" on {scheduler}" if scheduler else
+                (f" with {min(jobs, max(len(tasks), 1))} worker(s)" if tasks else ""))
+    if progress is not None and done:
+        progress(ProgressEvent(done, total, len(failures), "", "cached", done))
+
+    for result in _execute(tasks, jobs=jobs, scheduler=scheduler):
+        key = result["key"]
+        done += 1
+        if result["status"] == "ok":
+            entry = {"status": "ok", "rows": result["rows"], "files": result["files"]}
+            cache.put(key, entry)
+            write_coefficient_files(outdir, names[key], result["files"])
+            entries[key] = {"status": "ok", "rows": result["rows"]}
+        else:
+            record = {"status": "failed", "stage": result["stage"], "error": result["error"]}
+            logger.warning("%s failed at %s: %s", names[key], result["stage"], result["error"])
+            logger.debug("%s", result.get("traceback", ""))
+            if result.get("cacheable"):
+                cache.put(key, record)
+            failures[key] = record
+        if progress is not None:
+            progress(ProgressEvent(done, total, len(failures), names[key], result["status"]))
+
+    tables = build_tables(keyed, entries, failures, manifest.extra_columns)
+    for name, (columns, rows) in tables.items():
+        write_tsv(outdir / f"{name}.tsv", columns, rows)
+    (outdir / COEFFICIENTS).mkdir(exist_ok=True)
+    write_json(outdir / RUN_JSON, _run_json(params, manifest, hashes, len(failures)))
+    fail_rows = tuple(tables["failures"][1])
+    logger.info("%d described, %d failed; tables in %s", len(entries), len(failures), outdir)
+    return StudyRun(outdir, total, n_cached, len(tasks), len(failures), fail_rows)

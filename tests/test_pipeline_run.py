@@ -1,0 +1,279 @@
+"""Study runs: failures recorded while the rest goes on, outputs, resume, refusals.
+
+These tests run in this process (``jobs=1``) with small private stand-ins for the
+per-structure stages (sphere map + expansion, repair, label volume -> surface), so they
+exercise the pipeline's own logic in a second or two: they obey the interface of
+``shapedesc.descriptors.describe_surface``, ``shapedesc.mesh.repair.prepare_surface``
+and ``shapedesc.mesh.volume.label_to_surface``.  The same behaviour with the real
+stages, across processes and on Dask, is in ``test_pipeline_parallel.py``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import sys
+import types
+from dataclasses import dataclass
+from pathlib import Path
+
+import nibabel as nib
+import numpy as np
+import pytest
+import trimesh
+
+from shapedesc.errors import LabelError, ManifestError, MeshTopologyError, OutputExistsError
+from shapedesc.pipeline.manifest import read_manifest
+from shapedesc.pipeline.run import DescribeParameters, exit_status, run_study
+
+
+# --------------------------------------------------------------------------- stand-ins
+@dataclass(frozen=True)
+class _Description:
+    values: np.ndarray
+    degree: int
+
+    def spectrum_row(self):
+        return {f"l{l}": float(self.values[l - 1]) for l in range(1, self.degree + 1)}
+
+    def spectrum_mm2_row(self):
+        return {f"l{l}": float(self.values[l - 1] * 10.0) for l in range(1, self.degree + 1)}
+
+    def shape_row(self):
+        return {"volume_mm3": float(self.values.sum()), "degree_95": 2}
+
+    def qc_row(self):
+        return {"fit_rms_mm": 0.125, "pose_unstable": False}
+
+    def write_coefficients(self, path):
+        buf = io.BytesIO()
+        np.lib.format.write_array(buf, self.values, allow_pickle=False)
+        Path(path).write_bytes(buf.getvalue())
+
+
+def _describe_surface(surface, *, degree=15, scale="volume", smoothing=0.0):
+    c = surface.vertices - surface.vertices.mean(axis=0)
+    ev = np.linalg.eigvalsh(c.T @ c / len(c))
+    values = np.array([ev.sum() / (l * l) + smoothing for l in range(1, degree + 1)])
+    return _Description(values, degree)
+
+
+def _prepare_surface(surface):
+    edges = np.sort(surface.faces[:, [0, 1, 1, 2, 2, 0]].reshape(-1, 2), axis=1)
+    chi = surface.n_vertices - len(np.unique(edges, axis=0)) + surface.n_faces
+    if chi != 2:
+        raise MeshTopologyError(f"{surface.source}: Euler characteristic {chi}, expected 2 "
+                                f"(genus 0)")
+    return surface
+
+
+@dataclass(frozen=True)
+class _Report:
+    n_voxels: int
+
+    def to_row(self):
+        return {"n_voxels": self.n_voxels}
+
+
+def _label_to_surface(volume, label, *, smoothing_iterations=None, target_vertices=None):
+    from skimage.measure import marching_cubes
+
+    from shapedesc.surface import Surface
+
+    mask = np.asarray(volume.data) == label
+    if not mask.any():
+        raise LabelError(f"{volume.path}: label {label} is absent; labels present: "
+                         f"{sorted(set(np.unique(volume.data)) - {0})}")
+    verts, faces, _, _ = marching_cubes(np.pad(mask, 1).astype(np.float32), 0.5)
+    return Surface(verts, faces[:, ::-1], source=f"{volume.path}#label={label}"), _Report(int(mask.sum()))
+
+
+@pytest.fixture
+def stand_ins(monkeypatch):
+    """Replace the per-structure stages in this process (the readers stay real)."""
+    pytest.importorskip("shapedesc.io.surfaces", reason="needs shapedesc.io.surfaces")
+    pytest.importorskip("shapedesc.io.volumes", reason="needs shapedesc.io.volumes")
+    import shapedesc.descriptors as descriptors
+
+    monkeypatch.setattr(descriptors, "describe_surface", _describe_surface)
+    repair = types.ModuleType("shapedesc.mesh.repair")
+    repair.prepare_surface = _prepare_surface
+    volume = types.ModuleType("shapedesc.mesh.volume")
+    volume.label_to_surface = _label_to_surface
+    monkeypatch.setitem(sys.modules, "shapedesc.mesh.repair", repair)
+    monkeypatch.setitem(sys.modules, "shapedesc.mesh.volume", volume)
+
+
+# --------------------------------------------------------------------------- study
+def _gifti(path: Path, mesh: trimesh.Trimesh) -> None:
+    from nibabel.gifti import GiftiDataArray, GiftiImage
+
+    img = GiftiImage(darrays=[
+        GiftiDataArray(mesh.vertices.astype(np.float32), intent="NIFTI_INTENT_POINTSET",
+                       datatype="NIFTI_TYPE_FLOAT32"),
+        GiftiDataArray(mesh.faces.astype(np.int32), intent="NIFTI_INTENT_TRIANGLE",
+                       datatype="NIFTI_TYPE_INT32")])
+    path.parent.mkdir(parents=True, exist_ok=True)
+    nib.save(img, str(path))
+
+
+def _label_volume(path: Path, labels=(1, 2)) -> None:
+    data = np.zeros((16, 12, 12), dtype=np.uint8)
+    z, y, x = np.mgrid[:16, :12, :12]
+    if 1 in labels:
+        data[((z - 5) / 3.5) ** 2 + ((y - 6) / 3.0) ** 2 + ((x - 6) / 2.5) ** 2 <= 1] = 1
+    if 2 in labels:
+        data[((z - 11.5) / 2.5) ** 2 + ((y - 6) / 2.5) ** 2 + ((x - 6) / 2.5) ** 2 <= 1] = 2
+    path.parent.mkdir(parents=True, exist_ok=True)
+    nib.save(nib.Nifti1Image(data, np.diag([1.0, 1.0, 1.0, 1.0])), str(path))
+
+
+def make_study(root: Path, *, n: int = 4, bad: bool = True) -> Path:
+    """A small study: n subjects with one sphere-like surface each, one label volume
+    with two labels, and (``bad``) a corrupt file, a torus and a missing label."""
+    rows = [["subject", "input", "labels", "structures", "group", "age"]]
+    for k in range(n):
+        mesh = trimesh.creation.icosphere(subdivisions=2, radius=8.0 + k)
+        mesh.apply_scale([1.0 + 0.1 * k, 1.0, 0.9])
+        _gifti(root / "surf" / f"s{k:02d}_blob.surf.gii", mesh)
+        rows.append([f"s{k:02d}", f"surf/s{k:02d}_blob.surf.gii", "", "", "AB"[k % 2], str(60 + k)])
+    _label_volume(root / "vol" / "v01.nii.gz")
+    rows.append(["v01", "vol/v01.nii.gz", "1,2", "arc,bean", "A", "70"])
+    if bad:
+        (root / "surf" / "x_corrupt.surf.gii").write_bytes(b"<?xml version='1.0'?><GIFTI trunc")
+        rows.append(["x1", "surf/x_corrupt.surf.gii", "", "blob", "B", "71"])
+        _gifti(root / "surf" / "x_torus.surf.gii",
+               trimesh.creation.torus(major_radius=10, minor_radius=3, major_sections=16,
+                                      minor_sections=8))
+        rows.append(["x2", "surf/x_torus.surf.gii", "", "blob", "B", "72"])
+        _label_volume(root / "vol" / "x3.nii.gz", labels=(1,))
+        rows.append(["x3", "vol/x3.nii.gz", "1,2", "arc,bean", "A", "73"])
+    path = root / "manifest.tsv"
+    path.write_text("\n".join("\t".join(r) for r in rows) + "\n", encoding="utf-8")
+    return path
+
+
+def _tables(outdir: Path) -> dict[str, bytes]:
+    out = {}
+    for p in sorted(outdir.rglob("*")):
+        if p.is_file() and ".cache" not in p.parts:
+            out[str(p.relative_to(outdir))] = p.read_bytes()
+    return out
+
+
+def _read_tsv(path: Path) -> list[dict]:
+    lines = path.read_text().splitlines()
+    header = lines[0].split("\t")
+    return [dict(zip(header, line.split("\t"))) for line in lines[1:]]
+
+
+PARAMS = DescribeParameters(degree=4)
+
+
+def test_bad_subjects_are_recorded_and_the_rest_goes_on(tmp_path, stand_ins):
+    manifest = read_manifest(make_study(tmp_path / "study"))
+    out = tmp_path / "out"
+    result = run_study(manifest, out, parameters=PARAMS)
+    assert (result.n_items, result.n_failed) == (4 + 2 + 1 + 1 + 2, 3)
+    assert result.exit_status == 3
+    failures = _read_tsv(out / "failures.tsv")
+    assert [(f["subject"], f["structure"], f["stage"]) for f in failures] == [
+        ("x1", "blob", "read"), ("x2", "blob", "prepare"), ("x3", "bean", "surface")]
+    assert "SurfaceFormatError" in failures[0]["error"]
+    assert "Euler characteristic 0" in failures[1]["error"]   # a torus has chi = 0
+    assert "label 2 is absent" in failures[2]["error"]
+    assert failures[0]["input"] == "surf/x_corrupt.surf.gii"
+
+    spectra = _read_tsv(out / "spectra.tsv")
+    assert [(r["subject"], r["structure"]) for r in spectra] == sorted(
+        [(f"s{k:02d}", "blob") for k in range(4)] + [("v01", "arc"), ("v01", "bean"),
+                                                     ("x3", "arc")])
+    header = (out / "spectra.tsv").read_text().splitlines()[0].split("\t")
+    assert header == ["subject", "structure", "group", "age", "l1", "l2", "l3", "l4"]
+    assert spectra[0]["group"] == "A" and spectra[1]["age"] == "61"
+    qc = _read_tsv(out / "qc.tsv")
+    # the label_to_surface report is carried into qc.tsv (voxel count checked with nibabel)
+    n_bean = int((np.asarray(nib.load(tmp_path / "study" / "vol" / "v01.nii.gz").dataobj) == 2).sum())
+    assert (qc[-2]["structure"], qc[-2]["volume_n_voxels"]) == ("bean", str(n_bean))
+    assert qc[0]["volume_n_voxels"] == "n/a"
+    assert (out / "qc.tsv").read_text().splitlines()[0].startswith("subject\tstructure\tinput\t")
+    for name in ("spectra_mm2.tsv", "shape.tsv"):
+        assert len(_read_tsv(out / name)) == 7
+    # a coefficient file per success, holding what describe wrote
+    coeff = sorted(p.name for p in (out / "coefficients").iterdir())
+    assert coeff == sorted(f"{r['subject']}_{r['structure']}.npz" for r in spectra)
+    arr = np.load(out / "coefficients" / "v01_bean.npz", allow_pickle=False)
+    assert arr.shape == (4,)
+    # BIDS derivative description and provenance
+    desc = json.loads((out / "dataset_description.json").read_text())
+    assert desc["DatasetType"] == "derivative" and desc["GeneratedBy"][0]["Name"] == "shapedesc"
+    run = json.loads((out / "run.json").read_text())
+    assert run["parameters"]["degree"] == 4 and run["complete"] and run["failed"] == 3
+    sha = {i["path"]: i["sha256"] for i in run["inputs"]}
+    # SHA-256 checked against hashlib (Python standard library)
+    assert sha["vol/v01.nii.gz"] == hashlib.sha256(
+        (tmp_path / "study" / "vol" / "v01.nii.gz").read_bytes()).hexdigest()
+    assert run["dependencies"]["numpy"] == np.__version__
+
+
+def test_rerun_computes_nothing_and_writes_identical_bytes(tmp_path, stand_ins):
+    manifest = read_manifest(make_study(tmp_path / "study"))
+    out = tmp_path / "out"
+    run_study(manifest, out, parameters=PARAMS)
+    first = _tables(out)
+    again = run_study(manifest, out, parameters=PARAMS)
+    assert (again.n_computed, again.n_cached) == (0, again.n_items)
+    assert _tables(out) == first
+
+
+def test_resume_computes_only_missing_items(tmp_path, stand_ins):
+    manifest = read_manifest(make_study(tmp_path / "study", bad=False))
+    full = tmp_path / "full"
+    run_study(manifest, full, parameters=PARAMS)
+    # An interrupted run: the cache holds only some items, coefficient files and the
+    # tables are partly missing (what a kill between two items leaves behind).
+    part = tmp_path / "part"
+    run_study(manifest, part, parameters=PARAMS)
+    entries = sorted((part / ".cache").rglob("*.json"))
+    for p in entries[::2]:
+        p.unlink()
+    for p in (part / "coefficients").iterdir():
+        p.unlink()
+    (part / "spectra.tsv").unlink()
+    resumed = run_study(manifest, part, parameters=PARAMS)
+    assert resumed.n_computed == len(entries[::2])
+    assert resumed.n_cached == len(entries) - len(entries[::2])
+    assert _tables(part) == _tables(full)
+
+
+def test_refusals(tmp_path, stand_ins):
+    manifest = read_manifest(make_study(tmp_path / "study", n=2, bad=False))
+    out = tmp_path / "out"
+    run_study(manifest, out, parameters=PARAMS)
+    before = _tables(out)
+    with pytest.raises(OutputExistsError, match="degree: 4 there, 5 now"):
+        run_study(manifest, out, parameters=DescribeParameters(degree=5))
+    assert _tables(out) == before
+    forced = run_study(manifest, out, parameters=DescribeParameters(degree=5), force=True)
+    assert forced.n_computed == forced.n_items
+    assert "l5" in (out / "spectra.tsv").read_text().splitlines()[0].split("\t")
+    # a non-empty folder that is not ours
+    other = tmp_path / "other"
+    other.mkdir()
+    (other / "notes.txt").write_text("keep me")
+    with pytest.raises(OutputExistsError, match="not made by shapedesc"):
+        run_study(manifest, other, parameters=PARAMS)
+    # inputs are never overwritten, whatever --force says
+    with pytest.raises(OutputExistsError, match="holds the input"):
+        run_study(manifest, tmp_path / "study", parameters=PARAMS, force=True)
+
+
+def test_parameters_and_exit_status_are_validated():
+    with pytest.raises(ValueError, match="scale must be one of"):
+        DescribeParameters(scale="mass")
+    with pytest.raises(ValueError, match="degree must be a positive integer"):
+        DescribeParameters(degree=0)
+    with pytest.raises(ValueError, match="smoothing must be"):
+        DescribeParameters(smoothing=float("nan"))
+    assert [exit_status(n) for n in (0, 3, 100, 5000)] == [0, 3, 100, 100]
