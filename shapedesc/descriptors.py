@@ -378,7 +378,7 @@ def write_coefficient_file(path: str | Path, *, native_values: np.ndarray,
     """Write a coefficient ``.npz`` deterministically and atomically.
 
     Members: ``canonical.npy``, ``native.npy`` (float64, ((L+1)², 3)) and
-    ``metadata.npy`` (a 0-d unicode array holding JSON). Readable with
+    ``metadata.npy`` (a one-element unicode array holding JSON). Readable with
     ``numpy.load(path, allow_pickle=False)``.
     """
     from shapedesc.io.atomic import atomic_path
@@ -412,7 +412,7 @@ def read_coefficients(path: str | Path) -> CoefficientRecord:
         with np.load(path, allow_pickle=False) as z:
             canonical = np.asarray(z["canonical"], dtype=np.float64)
             native = np.asarray(z["native"], dtype=np.float64)
-            meta = json.loads(str(z["metadata"]))
+            meta = json.loads(str(np.asarray(z["metadata"]).reshape(-1)[0]))
     except (OSError, KeyError, ValueError, zipfile.BadZipFile) as exc:
         raise SurfaceFormatError(
             f"{path}: not a shapedesc coefficient file ({exc}); give a file from the "
