@@ -32,6 +32,9 @@ ROTATION_ORTHOGONALITY_TOL: float = 1e-8
 #: (bytes). 64 MiB keeps the 150,000-point, degree-40 fit far below 1 GB while the
 #: BLAS calls stay large enough to run at full speed (measured, benchmarks/harmonics_fit.py).
 SH_CHUNK_BYTES: int = 64 * 1024**2
+#: A fit keeps its basis blocks for the residual pass when all of them fit in this many
+#: bytes (else it rebuilds them chunk by chunk); 256 MiB (common practice).
+SH_FIT_CACHE_BYTES: int = 256 * 1024**2
 #: Normal equations whose Jacobi-scaled reciprocal condition number (LAPACK dpocon) is
 #: below this are solved by eigen-decomposition instead of Cholesky (dimensionless).
 #: Cholesky on normal equations loses ~cond·eps relative accuracy, so 1e-10 still leaves

@@ -20,6 +20,10 @@ class RepairWarning(ShapedescWarning):
     """A surface was changed by a repair step before use."""
 
 
+class IllConditionedFitWarning(ShapedescWarning):
+    """A least-squares harmonic fit was ill-conditioned and solved by eigen-decomposition."""
+
+
 class SurfaceFormatError(ValueError):
     """A file could not be read as a surface or volume (empty, truncated, corrupt, wrong format)."""
 
