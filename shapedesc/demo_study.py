@@ -166,8 +166,12 @@ def _inside(points_ijk: np.ndarray, lo: np.ndarray, voxel_mm: float, verts: np.n
     from scipy.spatial import cKDTree
 
     points = points_ijk * voxel_mm + lo
+    # A point of the surface lies within its triangle's circumradius (<= 0.6 x the
+    # longest edge for the near-equilateral triangles here) of a vertex, so two
+    # neighbouring voxel centres both farther than that plus half a voxel from every
+    # vertex are joined by a segment that does not cross the surface.
     edges = np.linalg.norm(verts[faces] - verts[np.roll(faces, 1, axis=1)], axis=2)
-    band = float(edges.max()) + voxel_mm
+    band = 0.6 * float(edges.max()) + voxel_mm
     dist, _ = cKDTree(verts).query(points, distance_upper_bound=band)
     near = np.isfinite(dist)
     inside = np.zeros(len(points), dtype=bool)
