@@ -176,18 +176,16 @@ FIGURE_DPI: int = 300
 #: keeps the single-file report small (common practice).
 REPORT_DPI: int = 110
 
-#: Significance level used to mark corrected-significant degrees and regions in
-#: figures (family-wise or FDR-corrected p below this). 0.05 (common practice).
-FIGURE_ALPHA: float = 0.05
+#: (Figures mark corrected-significant degrees and regions at the stats section's
+#: DEFAULT_ALPHA, so a figure and the log of `compare` always agree.)
 
 #: Ambient and diffuse weights of the Lambert shading of surface renders (unitless,
 #: sum 1 so a face turned to the light keeps its full colour; common practice).
 SURFACE_AMBIENT: float = 0.35
 SURFACE_DIFFUSE: float = 0.65
 
-#: Multiple of the standard deviation shown for shape-space modes (mean +/- 2 SD,
-#: common practice).
-MODE_SD_MULTIPLE: float = 2.0
+#: (Shape-mode figures use the stats section's PCA_MODE_SD, the multiple `compare`
+#: writes its mode surfaces at.)
 
 # --------------------------------------------------------------------------- pipeline
 #: Significant digits of floats in the result tables (digits). Twelve keep far more than

@@ -69,7 +69,7 @@ def test_effect_sizes_and_marks_come_from_the_degree_table():
     points = next(l for l in ax.get_lines() if l.get_label().startswith("Hedges"))
     np.testing.assert_array_equal(points.get_ydata(), sub.hedges_g.to_numpy())
     marked = [l for l in ax.get_lines() if l.get_gid() == "significant"]
-    expected = sub.degree[sub.p_fwer < 0.05].to_numpy()
+    expected = sub.degree[sub.p_fwer <= 0.05].to_numpy()
     assert 0 < expected.size < len(sub)  # this seed has marked and unmarked degrees
     np.testing.assert_array_equal(marked[0].get_xdata(), expected)
     # the interval bars are the table's interval columns

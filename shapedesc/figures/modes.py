@@ -21,7 +21,7 @@ import numpy as np
 from matplotlib.cm import ScalarMappable
 from matplotlib.colors import Normalize
 
-from shapedesc.defaults import DEFAULT_ICOSPHERE_LEVEL, MODE_SD_MULTIPLE
+from shapedesc.defaults import DEFAULT_ICOSPHERE_LEVEL, PCA_MODE_SD
 from shapedesc.figures import style
 from shapedesc.figures.surfaces import (
     View,
@@ -76,7 +76,7 @@ def normal_displacement(vertices: np.ndarray, reference: np.ndarray, faces: np.n
 
 
 def mode_surfaces(shape_space, degree: int, *, n_modes: int = 3,
-                  sd_multiple: float = MODE_SD_MULTIPLE,
+                  sd_multiple: float = PCA_MODE_SD,
                   level: int = DEFAULT_ICOSPHERE_LEVEL) -> ModeSurfaces:
     """Rebuild mean and mean ± k SD surfaces from a shape-space result.
 

@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from shapedesc.defaults import FIGURE_ALPHA
+from shapedesc.defaults import DEFAULT_ALPHA
 from shapedesc.figures import style
 
 _DEGREE_COLUMN = re.compile(r"^l(\d+)$")
@@ -166,7 +166,7 @@ def _significance_column(table: pd.DataFrame, correction: str) -> str:
 
 
 def plot_effect_sizes(degree_tests: pd.DataFrame, *, correction: str = "p_fwer",
-                      alpha: float = FIGURE_ALPHA, title: str | None = None):
+                      alpha: float = DEFAULT_ALPHA, title: str | None = None):
     """Effect size (Hedges' g) by degree with its interval; corrected-significant degrees marked.
 
     Parameters
@@ -179,7 +179,8 @@ def plot_effect_sizes(degree_tests: pd.DataFrame, *, correction: str = "p_fwer",
         Column of corrected p (or q) values used to mark degrees (``"p_fwer"`` or
         ``"q_fdr"``).
     alpha : float
-        A degree is marked when its ``correction`` value is below ``alpha``.
+        A degree is marked when its ``correction`` value is at most ``alpha`` (the rule
+        ``compare`` uses in its log).
     title : str, optional
 
     Returns
@@ -217,11 +218,11 @@ def plot_effect_sizes(degree_tests: pd.DataFrame, *, correction: str = "p_fwer",
                 ax.plot(x, g, color=st["color"], marker=st["marker"], markersize=3.5,
                         linestyle="none", markerfacecolor="white",
                         label=name or "Hedges' g, 95 % CI")
-                sig = part[pcol].to_numpy(float) < alpha
+                sig = part[pcol].to_numpy(float) <= alpha
                 if sig.any():
                     ax.plot(x[sig], g[sig], color=st["color"], marker=st["marker"],
                             markersize=4.5, linestyle="none", gid="significant",
-                            label=f"{label} < {alpha:g}" + (f" ({name})" if name else ""))
+                            label=f"{label} ≤ {alpha:g}" + (f" ({name})" if name else ""))
                     for xi, hii in zip(x[sig], hi[sig]):
                         ax.annotate("*", (xi, hii), ha="center", va="bottom", fontsize=9)
             ax.axhline(0.0, color="0.5", linewidth=0.7)
@@ -230,6 +231,6 @@ def plot_effect_sizes(degree_tests: pd.DataFrame, *, correction: str = "p_fwer",
             ax.set_ylabel("Hedges' g (unitless)")
             ax.xaxis.get_major_locator().set_params(integer=True)
             ax.legend(frameon=False, fontsize=6, loc="best")
-        fig.suptitle(title or f"Effect size by degree (filled, *: {label} < {alpha:g})")
+        fig.suptitle(title or f"Effect size by degree (filled, *: {label} ≤ {alpha:g})")
         fig.tight_layout()
     return fig

@@ -279,7 +279,9 @@ def _draw(ax, v, f, view, s, cmap, norm, sig, sig_style, colour, silhouette_of,
     if sig is not None and sig_style == "outline":
         polys, rgba = _with_outline(polys, rgba, sig[f[order]], xy, f[order], radius or
                                     float(np.ptp(xy, axis=0).max()) / 2)
-    pc = PolyCollection(polys, facecolors=rgba, edgecolors=rgba, linewidths=0.15,
+    # Without antialiasing, Agg fills each pixel whose centre lies in a polygon, so
+    # faces sharing an edge tile the image with no cracks and no edge strokes are needed.
+    pc = PolyCollection(polys, facecolors=rgba, edgecolors="none", linewidths=0.0,
                         antialiaseds=False)
     ax.add_collection(pc)
 
@@ -464,7 +466,7 @@ def plot_surface_grid(rows, *, views=None, hemisphere: str = "left",
         cmap = matplotlib.colormaps[cmap]
     # One scale for every panel: the largest half-width over rows and views.
     centres = [v.mean(axis=0) for (v, _), _ in checked]
-    radius = 1.04 * max(float(np.max(np.abs(_project(v - c, view)[0])))
+    radius = 1.12 * max(float(np.max(np.abs(_project(v - c, view)[0])))
                         for ((v, _), _), c in zip(checked, centres) for view in views)
 
     with style.figure_style():
