@@ -74,3 +74,20 @@ def test_separability_under_the_null():
     assert r.p_value > 0.05
     with pytest.raises(StatsInputError, match="at least 2 per group"):
         classify_groups(x[:7], np.array([0, 0, 0, 0, 0, 0, 1]), n_permutations=5)
+
+
+def test_auc_matches_sklearn_roc_auc_score():
+    metrics = pytest.importorskip("sklearn.metrics")
+    from shapedesc.stats.shapespace import _auc
+
+    rng = np.random.default_rng(6)
+    y2 = rng.integers(0, 2, 50)
+    p1 = np.round(rng.uniform(size=50), 1)  # rounding makes ties
+    proba2 = np.column_stack([1 - p1, p1])
+    # Source: sklearn.metrics.roc_auc_score (trapezoidal ROC area = Mann-Whitney U / n1 n0)
+    assert _auc(proba2, y2, 2) == pytest.approx(metrics.roc_auc_score(y2, p1), rel=1e-12)
+    y3 = np.arange(60) % 3
+    raw = rng.uniform(size=(60, 3))
+    proba3 = raw / raw.sum(1, keepdims=True)
+    ref = metrics.roc_auc_score(y3, proba3, multi_class="ovr", average="macro")
+    assert _auc(proba3, y3, 3) == pytest.approx(ref, rel=1e-12)

@@ -50,6 +50,8 @@ class VertexTests:
         Mean displacement of each group level.
     test : PermutationResult
         Statistic and p-values per vertex (``p_fwer`` across vertices).
+    group_mean_vertices : dict of str -> ndarray, shape (V, 3), mm
+        Mean surface of each group level (same faces).
     """
 
     mean_vertices: np.ndarray
@@ -57,6 +59,7 @@ class VertexTests:
     displacement: np.ndarray
     group_means: dict
     test: PermutationResult
+    group_mean_vertices: dict
 
 
 def vertex_normals(vertices: np.ndarray, faces: np.ndarray) -> np.ndarray:
@@ -154,8 +157,10 @@ def vertex_tests(
     test = freedman_lane(disp, design, contrast, n_permutations=n_permutations, rng=rng,
                          blocks=blocks)
     means = {lv: disp[codes == i].mean(axis=0) for i, lv in enumerate(levels)}
+    surfaces = {lv: x[codes == i].mean(axis=0) for i, lv in enumerate(levels)}
     return VertexTests(mean_vertices=mean, faces=np.asarray(faces, dtype=np.int64),
-                       displacement=disp, group_means=means, test=test)
+                       displacement=disp, group_means=means, test=test,
+                       group_mean_vertices=surfaces)
 
 
 def write_vertex_gifti(path, result: VertexTests, *, overwrite: bool = False) -> None:
