@@ -7,7 +7,6 @@ memory), and refuse XML with entity declarations before any parser sees it.
 
 from __future__ import annotations
 
-import re
 import zlib
 from pathlib import Path
 
@@ -137,10 +136,6 @@ def check_zlib_payload(payload: bytes, *, limit: int, path: Path, what: str) -> 
         raise SurfaceFormatError(f"{path}: {what} is corrupt ({exc}); re-export the file.") from None
 
 
-_DOCTYPE = re.compile(rb"<!\s*DOCTYPE", re.IGNORECASE)
-_ENTITY = re.compile(rb"<!\s*ENTITY", re.IGNORECASE)
-
-
 def refuse_xml_declarations(data: bytes, *, path: Path) -> None:
     """Refuse XML carrying entity declarations or a DOCTYPE internal subset.
 
@@ -149,20 +144,26 @@ def refuse_xml_declarations(data: bytes, *, path: Path) -> None:
     GIFTI writers put at the top (``<!DOCTYPE GIFTI SYSTEM "...gifti.dtd">``) is accepted:
     it declares nothing and is never fetched.
     """
-    if _ENTITY.search(data):
-        raise SurfaceFormatError(
-            f"{path}: the XML declares entities (<!ENTITY ...>); refused before parsing "
-            "because entity expansion can exhaust memory. A GIFTI file needs no entity "
-            "declarations: re-export it with a standard GIFTI writer."
-        )
-    m = _DOCTYPE.search(data)
-    if m is not None:
-        end = data.find(b">", m.end())
-        decl = data[m.start(): end + 1 if end >= 0 else len(data)]
-        if b"[" in decl:
+    declarations = []
+    pos = data.find(b"<!")
+    while pos >= 0:
+        declarations.append(pos)
+        pos = data.find(b"<!", pos + 2)
+    words = [data[p + 2: p + 64].lstrip().upper() for p in declarations]
+    for word in words:
+        if word.startswith(b"ENTITY"):
             raise SurfaceFormatError(
-                f"{path}: the XML has a DOCTYPE with an internal subset ([...]); refused "
-                "before parsing because it can declare expanding entities. Re-export the "
-                "file with a standard GIFTI writer."
+                f"{path}: the XML declares entities (<!ENTITY ...>); refused before parsing "
+                "because entity expansion can exhaust memory. A GIFTI file needs no entity "
+                "declarations: re-export it with a standard GIFTI writer."
             )
-
+    for pos, word in zip(declarations, words):
+        if word.startswith(b"DOCTYPE"):
+            end = data.find(b">", pos)
+            decl = data[pos: end + 1 if end >= 0 else len(data)]
+            if b"[" in decl:
+                raise SurfaceFormatError(
+                    f"{path}: the XML has a DOCTYPE with an internal subset ([...]); refused "
+                    "before parsing because it can declare expanding entities. Re-export the "
+                    "file with a standard GIFTI writer."
+                )

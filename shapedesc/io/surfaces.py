@@ -200,16 +200,35 @@ _ITEMSIZE = {
     "NIFTI_TYPE_FLOAT32": 4, "NIFTI_TYPE_INT64": 8, "NIFTI_TYPE_UINT64": 8,
     "NIFTI_TYPE_FLOAT64": 8,
 }
-_DATAARRAY = re.compile(rb"<DataArray\b([^>]*)>(.*?)</DataArray>", re.DOTALL)
-_DATA = re.compile(rb"<Data>\s*(?:<!\[CDATA\[)?(.*?)(?:\]\]>)?\s*</Data>", re.DOTALL)
 _ATTR = re.compile(rb'(\w+)\s*=\s*"([^"]*)"')
+
+
+def _iter_data_arrays(data: bytes):
+    """Yield (attributes dict, payload bytes) for each <DataArray> (plain byte search, fast)."""
+    pos = data.find(b"<DataArray")
+    while pos >= 0:
+        tag_end = data.find(b">", pos)
+        if tag_end < 0:
+            return
+        attrs = {k.decode(): v.decode() for k, v in _ATTR.findall(data[pos:tag_end])}
+        close = data.find(b"</DataArray>", tag_end)
+        if close < 0:
+            close = len(data)
+        start = data.find(b"<Data>", tag_end, close)
+        payload = b""
+        if start >= 0:
+            stop = data.find(b"</Data>", start, close)
+            payload = data[start + 6: stop if stop >= 0 else close].strip()
+            if payload.startswith(b"<![CDATA[") and payload.endswith(b"]]>"):
+                payload = payload[9:-3]
+        yield attrs, payload
+        pos = data.find(b"<DataArray", close)
 
 
 def _check_gifti_payloads(data: bytes, *, path: Path, max_bytes: int) -> None:
     """Refuse zlib-compressed GIFTI arrays that inflate past their declared size or the limit."""
     total_declared = 0
-    for m in _DATAARRAY.finditer(data):
-        attrs = {k.decode(): v.decode() for k, v in _ATTR.findall(m.group(1))}
+    for attrs, payload in _iter_data_arrays(data):
         ndim = int(attrs.get("Dimensionality", "0") or 0)
         dims = [int(attrs.get(f"Dim{k}", "0") or 0) for k in range(ndim)]
         declared = int(np.prod(dims, dtype=np.int64)) * _ITEMSIZE.get(attrs.get("DataType", ""), 8)
@@ -219,18 +238,16 @@ def _check_gifti_payloads(data: bytes, *, path: Path, max_bytes: int) -> None:
                 f"{path}: the GIFTI arrays declare {total_declared} bytes, past the limit of "
                 f"{max_bytes}; raise max_bytes if the file is genuine."
             )
-        if attrs.get("Encoding") != "GZipBase64Binary":
-            continue
-        d = _DATA.search(m.group(2))
-        if d is None:
+        if attrs.get("Encoding") != "GZipBase64Binary" or not payload:
             continue
         try:
-            payload = binascii.a2b_base64(re.sub(rb"\s+", b"", d.group(1)))
+            # non-alphabet bytes (line breaks, spaces) are skipped by the decoder
+            raw = binascii.a2b_base64(payload)
         except binascii.Error as exc:
             raise SurfaceFormatError(
                 f"{path}: a GIFTI data array is not valid base64 ({exc}); the file is corrupt."
             ) from None
-        check_zlib_payload(payload, limit=min(declared, max_bytes), path=path,
+        check_zlib_payload(raw, limit=min(declared, max_bytes), path=path,
                            what=f"the GIFTI data array '{attrs.get('Intent', '?')}'")
 
 

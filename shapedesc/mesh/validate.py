@@ -158,6 +158,21 @@ class _Topology:
         return self.order[:-1][same], self.order[1:][same]
 
 
+def _argsort_with_keys(key: np.ndarray, *, max_key: int) -> tuple[np.ndarray, np.ndarray]:
+    """(argsort of ``key``, sorted ``key``) for non-negative int64 keys below ``max_key``.
+
+    When key and position fit together in 63 bits, the position is packed into the low
+    bits and one value sort (several times faster than numpy's argsort) does both.
+    """
+    n = len(key)
+    bits = max(int(n).bit_length(), 1)
+    if n and (int(max_key) << bits) < (1 << 62):
+        packed = np.sort((key << np.int64(bits)) | np.arange(n, dtype=np.int64))
+        return packed & np.int64((1 << bits) - 1), packed >> np.int64(bits)
+    order = np.argsort(key)
+    return order, key[order]
+
+
 def _topology(faces: np.ndarray, n_vertices: int) -> _Topology:
     f = np.asarray(faces, dtype=np.int64)
     he_from = f.reshape(-1)
@@ -165,8 +180,7 @@ def _topology(faces: np.ndarray, n_vertices: int) -> _Topology:
     lo = np.minimum(he_from, he_to)
     hi = np.maximum(he_from, he_to)
     key = lo * np.int64(max(n_vertices, 1)) + hi
-    order = np.argsort(key)
-    ks = key[order]
+    order, ks = _argsort_with_keys(key, max_key=max(n_vertices, 1) ** 2)
     if len(ks):
         new = np.empty(len(ks), dtype=bool)
         new[0] = True
@@ -213,6 +227,11 @@ def _nonmanifold_vertices(topo: _Topology, n_vertices: int) -> np.ndarray:
         succ[h2] = _next_half(h1)
         g = sparse.csr_matrix((np.ones(n_corners, dtype=np.int8), succ,
                                np.arange(n_corners + 1)), shape=(n_corners, n_corners))
+        if not np.any(topo.counts == 1):
+            # closed: succ is a permutation and each fan one of its cycles, which are its
+            # strongly connected components (no transpose needed)
+            n_fans, label = csgraph.connected_components(g, directed=True, connection="strong")
+            return _fans_to_vertices(n_fans, label, topo, n_vertices)
     else:
         h1, h2 = topo.consecutive_pairs()
         a = topo.he_from[h1]
@@ -222,6 +241,11 @@ def _nonmanifold_vertices(topo: _Topology, n_vertices: int) -> np.ndarray:
         g = sparse.coo_matrix((np.ones(len(rows), dtype=np.int8), (rows, cols)),
                               shape=(n_corners, n_corners)).tocsr()
     n_fans, label = csgraph.connected_components(g, directed=False)
+    return _fans_to_vertices(n_fans, label, topo, n_vertices)
+
+
+def _fans_to_vertices(n_fans: int, label: np.ndarray, topo: _Topology, n_vertices: int) -> np.ndarray:
+    out = np.zeros(n_vertices, dtype=bool)
     corner_vertex = topo.faces.reshape(-1)
     n_ref = int(np.count_nonzero(np.bincount(corner_vertex, minlength=n_vertices)))
     if n_fans == n_ref:  # every vertex has exactly one fan
@@ -233,13 +257,16 @@ def _nonmanifold_vertices(topo: _Topology, n_vertices: int) -> np.ndarray:
 
 def _vertex_components(topo: _Topology, n_vertices: int) -> tuple[int, np.ndarray]:
     """Components of the referenced vertices; labels (V,), -1 for unreferenced ones."""
-    ev = topo.edge_vertices()
-    g = sparse.coo_matrix((np.ones(len(ev), dtype=np.int8), (ev[:, 0], ev[:, 1])),
-                          shape=(n_vertices, n_vertices)).tocsr()
+    ev = topo.edge_vertices()  # sorted by (smaller, larger) index: already CSR row order
+    lo = np.minimum(ev[:, 0], ev[:, 1])
+    hi = np.maximum(ev[:, 0], ev[:, 1])
+    indptr = np.zeros(n_vertices + 1, dtype=np.int64)
+    np.cumsum(np.bincount(lo, minlength=n_vertices), out=indptr[1:])
+    g = sparse.csr_matrix((np.ones(len(hi), dtype=np.int8), hi, indptr),
+                          shape=(n_vertices, n_vertices))
     _, label = csgraph.connected_components(g, directed=False)
     referenced = np.zeros(n_vertices, dtype=bool)
     referenced[topo.faces.reshape(-1)] = True
-    label = np.where(referenced, label, -1)
     uniq, label_ref = np.unique(label[referenced], return_inverse=True)
     out = np.full(n_vertices, -1, dtype=np.int64)
     out[referenced] = label_ref
@@ -250,8 +277,8 @@ def _duplicate_groups(vertices: np.ndarray, tol: float) -> np.ndarray:
     """Representative index (V,) of each vertex: the first vertex on the same tolerance cell.
 
     Vertices are rounded to a grid of step ``tol`` (mm); those on the same grid point are
-    duplicates. Only vertices sharing a rounded x are compared further, so a mesh without
-    duplicates costs one sort.
+    duplicates. Only vertices whose rounded coordinates hash alike are compared further,
+    so a mesh without duplicates costs one sort.
     """
     n = len(vertices)
     rep = np.arange(n)
@@ -260,10 +287,16 @@ def _duplicate_groups(vertices: np.ndarray, tol: float) -> np.ndarray:
     if len(idx) < 2:
         return rep
     q = np.round(vertices[idx] / tol)
-    ox = np.argsort(q[:, 0])
-    qx = q[ox, 0]
-    tied = np.zeros(len(qx), dtype=bool)
-    eq = qx[1:] == qx[:-1]
+    # one sort on a hash of the rounded coordinates; equal hashes are then compared exactly
+    qi = np.clip(q, -(2.0**60), 2.0**60).astype(np.int64)
+    key = qi[:, 0] * np.int64(73856093) ^ qi[:, 1] * np.int64(19349663) ^ qi[:, 2] * np.int64(83492791)
+    bits = max(int(len(key)).bit_length(), 1)
+    # hash in the high bits, position in the low bits: one value sort
+    packed = np.sort((key & ~np.int64((1 << bits) - 1)) | np.arange(len(key), dtype=np.int64))
+    ox = packed & np.int64((1 << bits) - 1)
+    ks = packed >> np.int64(bits)
+    tied = np.zeros(len(ks), dtype=bool)
+    eq = ks[1:] == ks[:-1]
     tied[1:] |= eq
     tied[:-1] |= eq
     if not tied.any():
