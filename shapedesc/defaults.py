@@ -138,6 +138,22 @@ SPHERE_LBFGS_MEMORY: int = 10
 #: correction, relative to the mean diagonal of L over the mean vertex area
 #: (dimensionless); small so that L dominates, nonzero so the matrix is invertible.
 SPHERE_PRECOND_MASS: float = 1e-2
+#: Icosphere levels of the coarse grids of the multiresolution area correction, coarse
+#: to fine (level L has 10*4**L + 2 vertices); a level is used only when the mesh has at
+#: least SPHERE_MULTIRES_RATIO times as many vertices.
+SPHERE_MULTIRES_LEVELS: tuple = (3, 4, 5)
+#: Smallest fine/coarse vertex-count ratio for a coarse grid to be used (dimensionless).
+SPHERE_MULTIRES_RATIO: float = 8.0
+#: Largest number of coarse corrections per level.
+SPHERE_MULTIRES_CYCLES: int = 3
+#: Stop correcting on a level when one correction gains less than this fraction of the
+#: energy (dimensionless).
+SPHERE_MULTIRES_MIN_GAIN: float = 0.1
+#: Iteration budget of one coarse solve (iterations; coarse solves stop early anyway).
+SPHERE_MULTIRES_COARSE_ITER: int = 300
+#: Coarse faces hit by fewer fine face centroids than this take the sampled density
+#: instead of the binned area share (faces; binning is noisy below a few samples).
+SPHERE_MULTIRES_MIN_COUNT: int = 4
 #: A triangle counts as flipped when det(a, b, c) of its unit-sphere vertices is below
 #: this (unit-sphere volume units); 0 is the exact orientation test.
 SPHERE_FLIP_DET: float = 0.0

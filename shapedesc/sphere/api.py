@@ -1,0 +1,197 @@
+"""``map_to_sphere``: the whole sphere-mapping chain with its QC record.
+
+conformal initial map (:mod:`.conformal`) → Möbius centring (:mod:`.mobius`) →
+area/shear correction (:mod:`.area`, :mod:`.multires`) → QC (:mod:`.qc`).
+
+The map depends only on the intrinsic geometry of the surface (edge lengths, angles,
+areas) and on the face order: rotating or translating the surface leaves the sphere
+positions unchanged (bit for bit up to the round-off of the rotated coordinates), so the
+parameterisation is canonical up to a rotation of the sphere, as the rotation-invariant
+spectra require. No random numbers and no threads are used, so the same input gives a
+bit-identical map.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from ..defaults import SPHERE_SHEAR_WEIGHT
+from ..errors import SphereMapError
+from ..mesh.measures import vertex_areas
+from . import qc as _qc
+from .area import AreaProblem
+from .conformal import conformal_sphere_map
+from .laplacian import clamped_cotangent_laplacian
+from .mobius import mobius_centre
+from .multires import correct_area_multires
+from .topology import check_sphere_topology
+
+__all__ = ["SphereMap", "SphereMapQC", "map_to_sphere"]
+
+
+@dataclass(frozen=True)
+class SphereMapQC:
+    """Quality record of one sphere map (one row of a QC table).
+
+    Attributes
+    ----------
+    n_flipped : int
+        Faces with ``det(a, b, c) <= 0`` in the final map (0, or the map is refused).
+    flips_per_stage : dict[str, int]
+        Flipped faces after each stage: ``harmonic_plane``, ``stereographic``,
+        ``pole_correction`` (before its fallback), ``mobius``, ``area_correction`` (the
+        largest count over all accepted iterates), ``final``.
+    area_log_sd, area_log_p01, area_log_p99 : float
+        SD and 1st/99th percentiles over faces of log(sphere-area share / surface-area
+        share) (natural log, dimensionless).
+    angle_distortion_mean_deg : float
+        Mean absolute corner-angle change, degrees.
+    seconds_conformal, seconds_centring, seconds_area, seconds_total : float
+        Wall-clock time of the stages and of the whole call (s).
+    iterations : int
+        Area-correction iterations (all levels).
+    """
+
+    n_flipped: int
+    flips_per_stage: dict
+    area_log_sd: float
+    area_log_p01: float
+    area_log_p99: float
+    angle_distortion_mean_deg: float
+    seconds_conformal: float
+    seconds_centring: float
+    seconds_area: float
+    seconds_total: float
+    iterations: int
+
+    def to_row(self) -> dict:
+        """Flat dict for a table: stage flip counts become ``flips_<stage>`` columns."""
+        row = asdict(self)
+        stages = row.pop("flips_per_stage")
+        for k, v in stages.items():
+            row[f"flips_{k}"] = int(v)
+        return row
+
+
+@dataclass(frozen=True)
+class SphereMap:
+    """A bijective map of a genus-0 surface onto the unit sphere.
+
+    Attributes
+    ----------
+    sphere_vertices : ndarray, shape (V, 3), float64
+        Unit vector of each surface vertex (same order as the input vertices).
+    faces : ndarray, shape (F, 3), int64
+        The input faces (counter-clockwise seen from outside on the sphere too).
+    qc : SphereMapQC
+    face_log_area_ratio : ndarray, shape (F,)
+        log(sphere-area share / surface-area share) per face (0 = area-preserving).
+    vertex_area_distortion : ndarray, shape (V,)
+        The same log ratio for barycentric vertex areas (for figures).
+    vertex_angle_distortion_deg : ndarray, shape (V,)
+        Mean absolute angle change (degrees) of the corners at each vertex (for figures).
+    parameters : dict
+        ``shear_weight``, ``iterations``, ``solver``, ``ordering``, ``puncture_face``,
+        ``pole_correction_used``, ``mobius_iterations``, ``levels``, ``source``.
+    """
+
+    sphere_vertices: np.ndarray
+    faces: np.ndarray
+    qc: SphereMapQC
+    face_log_area_ratio: np.ndarray
+    vertex_area_distortion: np.ndarray
+    vertex_angle_distortion_deg: np.ndarray
+    parameters: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        for name in ("sphere_vertices", "faces", "face_log_area_ratio",
+                     "vertex_area_distortion", "vertex_angle_distortion_deg"):
+            arr = np.array(getattr(self, name))
+            arr.setflags(write=False)
+            object.__setattr__(self, name, arr)
+
+
+def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
+                  source: str = "<memory>") -> SphereMap:
+    """Map a closed genus-0 triangle surface bijectively onto the unit sphere.
+
+    Parameters
+    ----------
+    vertices : array_like, shape (V, 3)
+        Surface coordinates (mm).
+    faces : array_like, shape (F, 3)
+        Triangles, counter-clockwise seen from outside.
+    shear_weight : float
+        Balance of the shear (conformal) term against the area term (>= 0;
+        ``defaults.SPHERE_SHEAR_WEIGHT``). 0 gives the most uniform areas and the most
+        shear; larger values keep angles better and areas less uniform.
+    source : str
+        Name of the surface for error messages and the parameters record.
+
+    Returns
+    -------
+    SphereMap
+
+    Raises
+    ------
+    MeshTopologyError
+        The surface is open, non-manifold, inconsistently or inward oriented, has more
+        than one component, or is not genus 0.
+    MeshGeometryError
+        Malformed arrays, non-finite coordinates, unused vertices.
+    ConvergenceError
+        A stage did not converge; the message names ``source`` and the stage.
+    SphereMapError
+        The final map failed its bijectivity check (never returned silently).
+    """
+    if not (np.isfinite(shear_weight) and shear_weight >= 0):
+        raise ValueError(f"shear_weight must be finite and >= 0, got {shear_weight!r}")
+    t0 = time.perf_counter()
+    v, f = check_sphere_topology(vertices, faces, source=source)
+    # work in a translation/scale-normalised copy: only intrinsic ratios enter
+    vn = (v - v.mean(axis=0)) / np.sqrt(np.mean(np.sum((v - v.mean(axis=0)) ** 2, axis=1)))
+
+    conf = conformal_sphere_map(vn, f, source=source)
+    t1 = time.perf_counter()
+    x, mob_it = mobius_centre(conf.sphere_vertices, vertex_areas(vn, f),
+                              what=f"{source}: Möbius centring")
+    flips_mobius = _qc.count_flipped(x, f)
+    t2 = time.perf_counter()
+    L = clamped_cotangent_laplacian(vn, f)
+    problem = AreaProblem(vn, f, shear_weight=shear_weight, laplacian=L, what=source)
+    res = correct_area_multires(problem, x, surface_vertices=vn)
+    xs = res.sphere_vertices
+    t3 = time.perf_counter()
+
+    n_flip = _qc.count_flipped(xs, f)
+    sph_area = _qc.spherical_triangle_areas(xs, f)
+    if n_flip or abs(sph_area.sum() - 4 * np.pi) > 1e-6 * 4 * np.pi:
+        raise SphereMapError(f"{source}: sphere map failed its bijectivity check ({n_flip} "
+                             f"flipped faces, spherical areas sum to {sph_area.sum():.9g} "
+                             "instead of 4π); please report this surface")
+    lr = _qc.face_log_area_ratio(vn, xs, f)
+    ang = _qc.angle_distortion_deg(vn, xs, f)
+    va_s = np.zeros(len(v))
+    for k in range(3):
+        va_s += np.bincount(f[:, k], weights=sph_area / 3, minlength=len(v))
+    va_o = vertex_areas(vn, f)
+    v_lr = np.log((va_s / va_s.sum()) / (va_o / va_o.sum()))
+    t4 = time.perf_counter()
+    stages = {"harmonic_plane": conf.flips_planar, "stereographic": conf.flips_projected,
+              "pole_correction": conf.flips_corrected, "mobius": flips_mobius,
+              "area_correction": res.n_flipped_max, "final": n_flip}
+    qc = SphereMapQC(
+        n_flipped=n_flip, flips_per_stage=stages, area_log_sd=float(np.std(lr)),
+        area_log_p01=float(np.percentile(lr, 1)), area_log_p99=float(np.percentile(lr, 99)),
+        angle_distortion_mean_deg=float(ang.mean()), seconds_conformal=t1 - t0,
+        seconds_centring=t2 - t1, seconds_area=t3 - t2, seconds_total=t4 - t0,
+        iterations=int(res.iterations))
+    params = {"shear_weight": float(shear_weight), "iterations": int(res.iterations),
+              "solver": "L-BFGS (Laplacian-preconditioned), backtracking line search",
+              "ordering": "see shapedesc.sphere.linsolve", "puncture_face": conf.puncture_face,
+              "pole_correction_used": conf.pole_correction_used,
+              "mobius_iterations": int(mob_it), "levels": list(res.levels), "source": source}
+    return SphereMap(xs, f, qc, lr, v_lr, _qc.vertex_mean(f, ang, len(v)), params)
