@@ -15,6 +15,7 @@ import logging
 import math
 import multiprocessing
 from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor, as_completed
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -175,15 +176,50 @@ def _execute(tasks: list[dict], *, jobs: int, scheduler: str | None):
         for task in tasks:
             yield compute_item(task)
         return
+    yield from _execute_local(tasks, jobs)
+
+
+def _died(task: dict, exc: BaseException) -> dict:
+    return {"status": "failed", "key": task["key"], "stage": "describe",
+            "error": " ".join(f"worker process died while describing this item ({exc}); "
+                              f"out of memory or a crash in a compiled library?".split()),
+            "cacheable": False, "traceback": ""}
+
+
+def _execute_local(tasks: list[dict], jobs: int):
+    """Local ``spawn`` process pool.  If a worker dies (killed for memory, a crash in
+    compiled code), the unfinished items are retried in a fresh pool; if that breaks
+    too, each is run alone so the item that kills its worker is the only one to fail."""
     ctx = multiprocessing.get_context("spawn")
-    pool = ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=ctx,
-                               initializer=init_worker)
-    try:
-        futures = [pool.submit(compute_item, t) for t in tasks]
-        for fut in as_completed(futures):
-            yield fut.result()
-    finally:
-        pool.shutdown(wait=True, cancel_futures=True)
+    pending = list(tasks)
+    isolate = False
+    while pending:
+        batch = pending[:1] if isolate else pending
+        pool = ProcessPoolExecutor(max_workers=1 if isolate else min(jobs, len(batch)),
+                                   mp_context=ctx, initializer=init_worker)
+        broken: list[dict] = []
+        try:
+            futures = {pool.submit(compute_item, t): t for t in batch}
+            for fut in as_completed(futures):
+                try:
+                    result = fut.result()
+                except BrokenProcessPool as exc:
+                    broken.append((futures[fut], exc))
+                    continue
+                yield result
+        finally:
+            pool.shutdown(wait=True, cancel_futures=True)
+        if isolate:
+            if broken:
+                yield _died(*broken[0])
+            pending = pending[1:]
+        else:
+            order = {t["key"]: i for i, t in enumerate(tasks)}
+            pending = sorted((t for t, _ in broken), key=lambda t: order[t["key"]])
+            if pending:
+                logger.warning("a worker process died; retrying %d unfinished item(s) one "
+                               "at a time", len(pending))
+            isolate = True
 
 
 def _execute_dask(tasks: list[dict], scheduler: str):
@@ -201,8 +237,12 @@ def _execute_dask(tasks: list[dict], scheduler: str):
     try:
         futures = client.map(compute_item, tasks, key=[f"shapedesc-{t['key']}" for t in tasks],
                              pure=False)
-        for fut in dask_as_completed(futures):
-            yield fut.result()
+        by_key = {f.key: t for f, t in zip(futures, tasks)}
+        for fut in dask_as_completed(futures, loop=client.loop):
+            try:
+                yield fut.result()
+            except Exception as exc:  # noqa: BLE001 - e.g. KilledWorker: the item, not the study
+                yield _died(by_key[fut.key], exc)
     finally:
         client.close()
 
