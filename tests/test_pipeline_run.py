@@ -277,3 +277,28 @@ def test_parameters_and_exit_status_are_validated():
     with pytest.raises(ValueError, match="smoothing must be"):
         DescribeParameters(smoothing=float("nan"))
     assert [exit_status(n) for n in (0, 3, 100, 5000)] == [0, 3, 100, 100]
+
+
+def test_progress_shows_a_bar_on_a_terminal_and_log_lines_otherwise(tmp_path, stand_ins, caplog):
+    import logging
+
+    from shapedesc.pipeline.progress import ProgressReporter
+
+    manifest = read_manifest(make_study(tmp_path / "study", n=3, bad=False))
+    plain = io.StringIO()             # not a terminal: INFO log lines, nothing on the stream
+    with caplog.at_level(logging.INFO, logger="shapedesc.pipeline.progress"):
+        run_study(manifest, tmp_path / "a", parameters=PARAMS,
+                  progress=ProgressReporter(stream=plain, interval=0.0))
+    lines = [r.getMessage() for r in caplog.records if r.name == "shapedesc.pipeline.progress"]
+    assert len(lines) == 5 and lines[-1].startswith("5/5 done (0 failed")
+    assert "item/s" in lines[-1] and plain.getvalue() == ""
+
+    class _Terminal(io.StringIO):
+        def isatty(self):
+            return True
+
+    term = _Terminal()
+    run_study(manifest, tmp_path / "b", parameters=PARAMS, progress=ProgressReporter(stream=term))
+    text = term.getvalue()
+    # tqdm's bar: counts "5/5", a rate "item/s" and the elapsed<remaining times
+    assert "5/5" in text and "item/s" in text and "<" in text
