@@ -270,6 +270,22 @@ def test_several_handles_cavity_and_components():
     assert np.count_nonzero(fix.mask ^ m) == fix.voxels_added + fix.voxels_removed
 
 
+def test_regrowth_when_the_cluster_choice_is_not_a_ball(monkeypatch):
+    """Step 4: when the combined choice fails the ball check, the object is grown again
+    inside it; the result is a ball and a subset of the choice."""
+    ring = _ring((30, 30, 9), (15, 15, 4), 8.0, 10.0, 1)
+    calls = []
+
+    def never_ball(mask3, connectivity):
+        calls.append(1)
+        return False
+
+    monkeypatch.setattr(T, "_is_ball", never_ball)
+    fix = T.correct_topology(ring)
+    assert calls and fix.regrown
+    assert T.topology_counts(fix.mask) == (1, 0, 0)
+
+
 def test_correct_topology_leaves_a_ball_alone():
     i, j, k = np.indices((20, 20, 20))
     ball = (i - 10) ** 2 + (j - 9) ** 2 + (k - 10) ** 2 <= 36

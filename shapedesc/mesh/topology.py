@@ -385,8 +385,9 @@ def correct_topology(mask: np.ndarray, *, evidence: np.ndarray | None = None,
     Parameters
     ----------
     mask : ndarray, shape (I, J, K), bool
-        The voxel set; usually one component with cavities filled (other components
-        are removed, cavities filled, as part of the correction otherwise).
+        The voxel set; usually one component with cavities filled.  Otherwise the
+        correction also removes other components or joins them by bridges, and fills
+        or opens cavities, whichever changes fewer voxels.
     evidence : ndarray, shape (I, J, K), float, optional
         How object-like each voxel is (higher = more; e.g. a probability map).  Object
         voxels are grown in decreasing, background voxels in increasing evidence, so

@@ -144,7 +144,8 @@ def label_to_surface(volume, label: int, *,
     evidence : ndarray, shape (I, J, K), float, optional
         How object-like each voxel is (higher = more; e.g. the label's probability map),
         ordering which voxels the topology fix adds or removes first.  Default: signed
-        distance to the label's boundary.
+        distance (mm) to the label's boundary, after component selection and cavity
+        filling.
     connectivity : {26, 6}
         Object adjacency of the digital-topology pair ((26, 6) or (6, 26)).
 
@@ -277,7 +278,7 @@ def mask_to_surface(mask: np.ndarray, affine: np.ndarray, *, source: str = "<mem
     chi_before = 2 * int(euler_number(filled, connectivity=3 if connectivity == 26 else 1))
 
     if evidence is None:
-        ev = signed_distance_evidence(filled)
+        ev = signed_distance_evidence(filled, sampling=np.linalg.norm(A[:3, :3], axis=0))
     else:
         big = np.finfo(np.float64).max
         ev = np.pad(np.nan_to_num(evidence[crop], nan=-big, posinf=big, neginf=-big), 2,
