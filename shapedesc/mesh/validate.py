@@ -208,7 +208,9 @@ def _corner_at(h: np.ndarray, vertex: np.ndarray, topo: _Topology) -> np.ndarray
     return np.where(topo.he_from[h] == vertex, h, _next_half(h))
 
 
-def _nonmanifold_vertices(topo: _Topology, n_vertices: int) -> np.ndarray:
+def _nonmanifold_vertices(topo: _Topology, n_vertices: int, *,
+                          pairs: tuple[np.ndarray, np.ndarray] | None = None,
+                          n_same_direction: int | None = None) -> np.ndarray:
     """Boolean (V,) of vertices whose incident faces form more than one fan.
 
     Corners (face, vertex) are linked when their faces share an edge through the vertex;
@@ -218,8 +220,10 @@ def _nonmanifold_vertices(topo: _Topology, n_vertices: int) -> np.ndarray:
     out = np.zeros(n_vertices, dtype=bool)
     if n_corners == 0:
         return out
-    h1, h2 = topo.manifold_pairs()
-    if not np.any(topo.counts > 2) and not np.any(topo.he_from[h1] == topo.he_from[h2]):
+    h1, h2 = topo.manifold_pairs() if pairs is None else pairs
+    if n_same_direction is None:
+        n_same_direction = int(np.count_nonzero(topo.he_from[h1] == topo.he_from[h2]))
+    if not np.any(topo.counts > 2) and n_same_direction == 0:
         # Edge-manifold and consistently oriented: corner h (start of half-edge h, v->w)
         # is linked to the corner of v in the face across, the half-edge after the twin.
         succ = np.arange(n_corners)
@@ -334,10 +338,12 @@ def _area_volume(vertices: np.ndarray, faces: np.ndarray) -> tuple[np.ndarray, f
     centroid, divergence theorem), computed together for speed.
     """
     c = vertices.mean(axis=0)
-    a = vertices[faces[:, 0]] - c
-    n = _cross_rows(vertices[faces[:, 1]] - c - a, vertices[faces[:, 2]] - c - a)
+    p0 = np.take(vertices, faces[:, 0], axis=0)
+    n = _cross_rows(np.take(vertices, faces[:, 1], axis=0) - p0,
+                    np.take(vertices, faces[:, 2], axis=0) - p0)
     areas = 0.5 * np.sqrt(np.einsum("ij,ij->i", n, n))
-    volume = float(np.einsum("ij,ij->i", a, n).sum() / 6.0)
+    p0 -= c
+    volume = float(np.einsum("ij,ij->i", p0, n).sum() / 6.0)
     return areas, volume
 
 
@@ -389,7 +395,10 @@ def _measure(surface: Surface) -> _Measured:
     counts = topo.counts
     n_boundary = int(np.count_nonzero(counts == 1))
     n_nm_edges = int(np.count_nonzero(counts > 2))
-    n_nm_vertices = int(np.count_nonzero(_nonmanifold_vertices(topo, n_v)))
+    h1, h2 = topo.manifold_pairs()
+    n_same_direction = int(np.count_nonzero(topo.he_from[h1] == topo.he_from[h2]))
+    n_nm_vertices = int(np.count_nonzero(_nonmanifold_vertices(
+        topo, n_v, pairs=(h1, h2), n_same_direction=n_same_direction)))
     n_components, _ = _vertex_components(topo, n_v) if len(good) else (0, None)
     uses = np.bincount(fv.reshape(-1), minlength=n_v) if len(fv) else np.zeros(n_v, dtype=np.int64)
     n_unref = int(n_v - np.count_nonzero(uses))
@@ -401,8 +410,6 @@ def _measure(surface: Surface) -> _Measured:
     rep = _duplicate_groups(v, defaults.MERGE_TOLERANCE_MM)
     n_dup = int(np.count_nonzero(rep != np.arange(n_v)))
 
-    h1, h2 = topo.manifold_pairs()
-    n_same_direction = int(np.count_nonzero(topo.he_from[h1] == topo.he_from[h2]))
     if len(good) == 0 or not geometry_ok:
         orientation = "n/a"
     else:
