@@ -63,6 +63,19 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     return p
 
 
+#: Row keys not repeated on the "volume path" line (already in the table, or not informative).
+_VOLUME_SKIP = {"volume_mm3", "volume_label", "volume_n_vertices", "volume_n_faces",
+                "volume_euler_characteristic"}
+
+
+def _short(value) -> str:
+    if isinstance(value, float):
+        return f"{value:.4g}"
+    if isinstance(value, list):
+        return "; ".join(_short(v) for v in value)
+    return str(value)
+
+
 def _cell(value, fmt) -> str:
     if value is None:
         return "-"
@@ -92,9 +105,10 @@ def format_table(rows: list[dict]) -> str:
             out.append(f"    repair: {rep}")
         for reason in r.get("reasons") or []:
             out.append(f"    why: {reason}")
-        extra = {k[len("volume_"):]: v for k, v in r.items() if k.startswith("volume_") and k != "volume_mm3"}
+        extra = {k[len("volume_"):]: v for k, v in r.items()
+                 if k.startswith("volume_") and k not in _VOLUME_SKIP}
         if extra:
-            out.append("    volume path: " + ", ".join(f"{k}={v}" for k, v in extra.items()))
+            out.append("    volume path: " + ", ".join(f"{k}={_short(v)}" for k, v in extra.items()))
     n_bad = sum(1 for r in rows if r.get("verdict") == "unusable")
     out.append(f"{len(rows)} row(s): {len(rows) - n_bad} usable, {n_bad} unusable")
     return "\n".join(out)

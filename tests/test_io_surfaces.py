@@ -187,6 +187,21 @@ def test_truncated_files(tmp_path, sphere):
         read_surface(geo)
 
 
+def test_geometry_header_with_absurd_counts(tmp_path, sphere):
+    # vertex/face counts of 2**30 in the header of a tiny file: refused, nothing allocated
+    import struct
+
+    p = tmp_path / "lh.corrupt"
+    nib.freesurfer.write_geometry(str(p), sphere.vertices, sphere.faces)
+    raw = bytearray(p.read_bytes())
+    i = raw.index(b"\n\n") + 2  # counts follow the two-line text header
+    assert struct.unpack(">ii", raw[i:i + 8]) == (sphere.n_vertices, sphere.n_faces)
+    raw[i:i + 8] = struct.pack(">ii", 2**30, 2**30)
+    p.write_bytes(bytes(raw))
+    with pytest.raises(SurfaceFormatError, match=r"lh.corrupt: could not be read"):
+        read_surface(p)
+
+
 def test_wrong_format_for_suffix(tmp_path, sphere):
     ply = write_surface(sphere, tmp_path / "s.ply").read_bytes()
     p = tmp_path / "really_ply.gii"

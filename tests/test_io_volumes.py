@@ -78,6 +78,23 @@ def test_negative_determinant_affine_keeps_left_right(tmp_path):
     assert x1 < 0 < x2
 
 
+def test_negative_determinant_surface_keeps_left_right(tmp_path):
+    # through the volume path: a blob at high i must come out at negative x (x = 60 - 2 i)
+    volume_mod = pytest.importorskip("shapedesc.mesh.volume", reason="volume path not written yet")
+    aff = np.array([[-2.0, 0, 0, 60.0], [0, 1.5, 0, -30.0], [0, 0, 3.0, -10.0], [0, 0, 0, 1]])
+    data = np.zeros((40, 12, 12), np.int16)
+    data[30:36, 3:9, 3:9] = 5   # i = 30..35 -> x from 0 down to -10 mm (voxel centres)
+    vol = read_label_volume(_save(nib.Nifti1Image(data, aff), tmp_path / "neg5.nii.gz"))
+    surface, _ = volume_mod.label_to_surface(vol, 5)
+    centre_x = surface.vertices[:, 0].mean()
+    # voxel centres span x = 60 - 2*[30, 35] = [-10, 0]: centre -5 mm; the surface lies
+    # within half a voxel (1 mm) of that span, so its mean x is within 1 mm of -5
+    assert centre_x == pytest.approx(-5.0, abs=1.0)
+    # the expected x from nibabel's apply_affine (outside source) of the voxel centroid
+    ijk = np.argwhere(data == 5).mean(axis=0)
+    assert apply_affine(aff, ijk)[0] == pytest.approx(-5.0)
+
+
 def test_integer_valued_float_data_converted(tmp_path):
     data = _labels().astype(np.float32)
     vol = read_label_volume(_save(nib.Nifti1Image(data, np.eye(4)), tmp_path / "f.nii"))

@@ -29,6 +29,7 @@ import logging
 import os
 import re
 import tempfile
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -318,13 +319,17 @@ def _integer_faces(faces_raw: np.ndarray, *, path: Path) -> np.ndarray:
 def _read_geometry(data: bytes, *, path: Path, was_gzip: bool):
     import nibabel.freesurfer
 
-    if was_gzip:
-        with tempfile.TemporaryDirectory() as tmp:
-            inner = Path(tmp) / "surface"
-            inner.write_bytes(data)
-            vertices, faces = nibabel.freesurfer.read_geometry(str(inner))
-    else:
-        vertices, faces = nibabel.freesurfer.read_geometry(str(path))
+    # a corrupt header (absurd vertex counts) shows up as a numeric RuntimeWarning inside
+    # nibabel; treat it as the error it is
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        if was_gzip:
+            with tempfile.TemporaryDirectory() as tmp:
+                inner = Path(tmp) / "surface"
+                inner.write_bytes(data)
+                vertices, faces = nibabel.freesurfer.read_geometry(str(inner))
+        else:
+            vertices, faces = nibabel.freesurfer.read_geometry(str(path))
     vertices = np.asarray(vertices, dtype=np.float64)
     faces = _integer_faces(np.asarray(faces), path=path)
     return vertices, faces, ["coordinates kept as stored in the triangle-geometry file"]
