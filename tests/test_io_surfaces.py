@@ -303,3 +303,21 @@ def test_entity_expansion_gifti_refused_not_expanded(tmp_path):
     p2.write_text('<?xml version="1.0"?><!DOCTYPE GIFTI [<!ELEMENT GIFTI ANY>]><GIFTI/>')
     with pytest.raises(SurfaceFormatError, match=r"subset.gii: the XML has a DOCTYPE with an internal subset"):
         read_surface(p2)
+
+
+@pytest.mark.parametrize("ext", ["gii", "ply"])
+def test_bad_geometry_in_files_named_at_use(tmp_path, sphere, ext):
+    # reading keeps what the file holds; the gate (prepare_surface) refuses it naming the file
+    from shapedesc.errors import MeshGeometryError
+    from shapedesc.mesh.repair import prepare_surface
+
+    v = np.array(sphere.vertices)
+    v[7] = [np.nan, 0.0, np.inf]
+    p = write_surface(Surface(v, sphere.faces), tmp_path / f"nan.{ext}")
+    with pytest.raises(MeshGeometryError, match=rf"nan.{ext}: 1 vertices have NaN or infinite"):
+        prepare_surface(read_surface(p))
+    f = np.array(sphere.faces)
+    f[0, 1] = sphere.n_vertices + 3
+    p = write_surface(Surface(sphere.vertices, f), tmp_path / f"idx.{ext}")
+    with pytest.raises(MeshGeometryError, match=rf"idx.{ext}: 1 faces index vertices that do not exist"):
+        prepare_surface(read_surface(p))

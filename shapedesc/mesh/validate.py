@@ -438,8 +438,19 @@ def _measure(surface: Surface) -> _Measured:
 
 def describe_problems(report: dict, *, fill_holes: bool = False,
                       keep_largest_component: bool = False) -> list[str]:
-    """Reasons a measured mesh is not usable, each saying what to do (private helper made public
-    for :mod:`shapedesc.mesh.repair` and the CLI)."""
+    """Reasons a measured mesh is not usable, each saying what to do.
+
+    Parameters
+    ----------
+    report : dict
+        Counts as in :class:`MeshReport` (without verdict, repairs and reasons).
+    fill_holes, keep_largest_component : bool, keyword-only
+        Whether those repairs were allowed (changes the advice given).
+
+    Returns
+    -------
+    list of str
+    """
     r = report
     out = []
     if r["n_nonfinite_coordinates"]:
