@@ -271,10 +271,10 @@ def _vertex_components(topo: _Topology, n_vertices: int) -> tuple[int, np.ndarra
     _, label = csgraph.connected_components(g, directed=False)
     referenced = np.zeros(n_vertices, dtype=bool)
     referenced[topo.faces.reshape(-1)] = True
-    uniq, label_ref = np.unique(label[referenced], return_inverse=True)
-    out = np.full(n_vertices, -1, dtype=np.int64)
-    out[referenced] = label_ref
-    return int(len(uniq)), out
+    present = np.bincount(label[referenced], minlength=int(label.max()) + 1 if len(label) else 0) > 0
+    relabel = np.cumsum(present) - 1  # consecutive ids over components with faces
+    out = np.where(referenced, relabel[label], -1).astype(np.int64)
+    return int(np.count_nonzero(present)), out
 
 
 def _duplicate_groups(vertices: np.ndarray, tol: float) -> np.ndarray:
