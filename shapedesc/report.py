@@ -195,9 +195,10 @@ def html_table(table: pd.DataFrame, *, caption: str = "", max_rows: int = MAX_TA
         Rows to mark (class ``sig``), e.g. corrected-significant tests.
     """
     rows = table.head(max_rows)
-    out = ['<div class="tablewrap"><table>']
-    if caption:
-        out.append(f"<caption>{html.escape(caption)}</caption>")
+    # The caption is a paragraph above the table, not <caption>: a <caption> is only as
+    # wide as its table and wraps into a narrow column over small tables.
+    out = [f'<p class="tcap">{html.escape(caption)}</p>' if caption else "",
+           '<div class="tablewrap"><table>']
     out.append("<thead><tr>" + "".join(f"<th>{_esc(c)}</th>" for c in rows.columns)
                + "</tr></thead><tbody>")
     marks = (np.zeros(len(rows), bool) if highlight is None
@@ -247,7 +248,7 @@ h3{margin-top:1.2em}
 table{border-collapse:collapse;font-size:.82em}
 th,td{border:1px solid #bbb;padding:.15em .45em;text-align:left;vertical-align:top}
 th{background:#eee}tr.sig td{font-weight:bold;background:#fdf1e6}
-caption{text-align:left;font-weight:bold;padding:.3em 0}
+.tcap{font-weight:bold;margin:.8em 0 .2em 0;font-size:.9em}
 figure{margin:1em 0}img{max-width:100%;height:auto;border:1px solid #ddd}
 figcaption{font-size:.85em;color:#333}
 .note{color:#444;font-size:.9em}
@@ -684,8 +685,9 @@ def build_report(outdir: str | Path, statsdir: str | Path | None = None, *,
     statsdir : path-like, optional
         STATSDIR of ``shapedesc compare``.
     input_root : path-like, optional
-        Folder the ``input`` paths of ``qc.tsv`` are relative to (the manifest's folder);
-        by default the current folder and OUTDIR's parent are tried.
+        Folder the ``input`` paths of ``qc.tsv`` are relative to (the manifest's folder).
+        Tried after it: the current folder, OUTDIR's parent, OUTDIR, and the folders
+        beside OUTDIR.
     dpi : int
         Resolution of the embedded images.
     max_thumbnails : int
@@ -699,6 +701,9 @@ def build_report(outdir: str | Path, statsdir: str | Path | None = None, *,
     comp = load_compare(statsdir) if statsdir is not None else None
     roots = [Path(input_root)] if input_root is not None else []
     roots += [Path.cwd(), desc.outdir.parent, desc.outdir]
+    # the manifest often sits in a sibling folder of OUTDIR (study/ beside describe/)
+    roots += sorted(p for p in desc.outdir.parent.iterdir()
+                    if p.is_dir() and p != desc.outdir and not p.name.startswith("."))
     sections = [
         ("summary", "Study summary", _summary(desc, comp)),
         ("qc", "Quality control", _qc_section(desc, roots, dpi, max_thumbnails)),

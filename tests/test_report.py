@@ -295,12 +295,9 @@ def test_report_refuses_to_overwrite(report, study):
         write_report(outdir, None, path)
 
 
-def test_report_without_statsdir_and_bad_folders(study, tmp_path):
+def test_report_refuses_bad_folders(tmp_path):
     from shapedesc.report import build_report
 
-    _, outdir, _ = study
-    text = build_report(outdir, None, input_root=outdir.parent, max_thumbnails=2)
-    assert "No STATSDIR given" in text
     with pytest.raises(ValueError, match="no spectra.tsv"):
         build_report(tmp_path)
     with pytest.raises(ValueError, match="no such folder"):
@@ -485,3 +482,26 @@ def test_report_renders_in_headless_chromium(report, tmp_path):
     assert px.shape[0] > 500 and px.shape[1] > 500
     assert len(np.unique(px)) > 32
     assert np.mean(px < 200) > 0.01
+
+
+def test_report_command_in_process(study, tmp_path, capsys):
+    from shapedesc.cli.main import COMMANDS, main
+
+    if "report" not in COMMANDS:
+        pytest.skip("report is not registered in cli/main.py COMMANDS yet")
+    root, outdir, statsdir = study
+    out = tmp_path / "r.html"
+    args = ["-q", "report", str(outdir), "--stats", str(statsdir), "-o", str(out),
+            "--inputs", str(root), "--thumbnails", "1", "--dpi", "40"]
+    assert main(args) == 0
+    text = out.read_text(encoding="utf-8")
+    assert "Group tests" in text and text.rstrip().endswith("</html>")
+    assert main(args) == 1  # exists: refused without --force
+    assert "--force" in capsys.readouterr().err
+    # without STATSDIR: describe results only, and the page says how to add tests
+    assert main(["-q", "report", str(outdir), "-o", str(out), "--thumbnails", "1",
+                 "--dpi", "40", "--force"]) == 0
+    assert "No STATSDIR given" in out.read_text(encoding="utf-8")
+    assert main(["-q", "report", str(outdir), str(statsdir), "--stats", str(tmp_path),
+                 "-o", str(out), "--force"]) == 1  # two different STATSDIRs
+    assert main(["-q", "report", str(outdir), "-o", str(tmp_path / "r.txt")]) == 1
