@@ -84,6 +84,17 @@ def test_table_known_configurations():
     assert not T.is_simple(~empty, connectivity=26)
 
 
+def test_flat_gather_codes_match_public_codes():
+    """The growth's flat gather uses the same bit layout as neighbourhood_codes."""
+    rng = np.random.default_rng(2)
+    st = (rng.random((7, 8, 9)) < 0.5).astype(np.uint8)
+    inner = np.ravel_multi_index(np.nonzero(np.pad(np.ones((5, 6, 7), bool), 1)), st.shape)
+    got = T._codes_at(st.ravel(), inner, T._flat_offsets(st.shape))
+    nbs = np.stack([st[i - 1:i + 2, j - 1:j + 2, k - 1:k + 2]
+                    for i, j, k in zip(*np.unravel_index(inner, st.shape))]).astype(bool)
+    assert np.array_equal(got, T.neighbourhood_codes(nbs))
+
+
 def test_table_is_shipped_and_checked():
     t = T.simple_point_table()
     assert t.shape == (1 << 23,) and t.dtype == np.uint8 and not t.flags.writeable

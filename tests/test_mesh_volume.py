@@ -147,6 +147,17 @@ def test_marching_cubes_mask_rejects_border_and_orients_outward():
         marching_cubes_mask(m)
 
 
+def test_no_degenerate_faces_before_smoothing():
+    """Vertices at distinct grid-edge midpoints: the smallest triangle marching cubes
+    makes is the corner cut with sides sqrt(2)/2, area sqrt(3)/8 voxel² (closed form)."""
+    rng = np.random.default_rng(1)
+    from scipy import ndimage as ndi
+    m = np.pad(ndi.gaussian_filter(rng.random((24, 24, 24)), 1.2) > 0.5, 2)
+    for conn in (26, 6):
+        v, f = marching_cubes_mask(m, connectivity=conn)
+        assert measures.face_areas(v, f).min() == pytest.approx(np.sqrt(3) / 8, rel=1e-12)
+
+
 # --------------------------------------------------------------------------- smoothing
 def test_taubin_matches_trimesh():
     sphere = trimesh.creation.icosphere(subdivisions=3)

@@ -462,8 +462,7 @@ def _parity(shape) -> np.ndarray:
 
 def _codes_at(state: np.ndarray, cand: np.ndarray, offs: np.ndarray) -> np.ndarray:
     """Configuration codes of ``state`` (flat uint8 0/1) around flat indices ``cand``."""
-    g = np.zeros((len(cand), 32), np.uint8)
-    g[:, :26] = state[cand[:, None] + offs[None, :]]
+    g = state[cand[:, None] + offs[None, :]]  # (k, 26); packbits pads to 4 bytes
     return np.packbits(g, axis=1, bitorder="little").view("<u4").ravel().astype(np.uint32)
 
 
