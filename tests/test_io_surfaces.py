@@ -239,7 +239,7 @@ def test_nifti_given_as_surface(tmp_path):
         read_surface(p)
 
 
-def _bomb(path, inflated_gib: int, member_mib: int = 64):
+def _bomb(path, inflated_gib: int, member_mib: int = 16):
     """Concatenated gzip members of zeros: a few MB on disk, ``inflated_gib`` GiB inflated."""
     member = gzip.compress(b"\0" * (member_mib << 20), compresslevel=9)
     n = (inflated_gib << 10) // member_mib
@@ -254,8 +254,8 @@ def test_gzip_bomb_refused_without_inflating(tmp_path):
     assert p.stat().st_size < 20 << 20
     t0 = time.perf_counter()
     with pytest.raises(InputTooLargeError, match=r"bomb.gii.gz: the gzip stream inflates past"):
-        read_surface(p, max_bytes=256 << 20)
-    # stopping at the 256 MiB limit takes well under the time of inflating 8 GiB;
+        read_surface(p, max_bytes=32 << 20)
+    # stopping at the 32 MiB limit takes well under the time of inflating 8 GiB;
     # 20 s is a loose bound for a loaded 2-core machine (about 1 s when idle)
     assert time.perf_counter() - t0 < 20
 
@@ -271,7 +271,7 @@ def test_gifti_array_bomb_refused(tmp_path):
     import base64
     import zlib
 
-    payload = base64.b64encode(zlib.compress(b"\0" * (64 << 20), 9)).decode()
+    payload = base64.b64encode(zlib.compress(b"\0" * (16 << 20), 9)).decode()
     xml = (
         '<?xml version="1.0" encoding="UTF-8"?>\n<GIFTI Version="1.0" NumberOfDataArrays="1">'
         '<DataArray Intent="NIFTI_INTENT_POINTSET" DataType="NIFTI_TYPE_FLOAT32" '
