@@ -229,13 +229,21 @@ def _nonmanifold_vertices(topo: _Topology, n_vertices: int, *,
         succ = np.arange(n_corners)
         succ[h1] = _next_half(h2)
         succ[h2] = _next_half(h1)
+        if not np.any(topo.counts == 1):
+            # closed: succ is a permutation and each fan one of its cycles. Label every
+            # corner with the smallest corner on its cycle by pointer doubling: after k
+            # steps the label covers 2**k successors, and no cycle is longer than the
+            # number of corners at its vertex.
+            longest = int(np.bincount(topo.faces.reshape(-1)).max())
+            label = np.arange(n_corners)
+            jump = succ
+            for _ in range(max(longest - 1, 1).bit_length()):
+                np.minimum(label, label[jump], out=label)
+                jump = jump[jump]
+            n_fans = int(np.count_nonzero(label == np.arange(n_corners)))
+            return _fans_to_vertices(n_fans, label, topo, n_vertices, label_bound=n_corners)
         g = sparse.csr_matrix((np.ones(n_corners, dtype=np.int8), succ,
                                np.arange(n_corners + 1)), shape=(n_corners, n_corners))
-        if not np.any(topo.counts == 1):
-            # closed: succ is a permutation and each fan one of its cycles, which are its
-            # strongly connected components (no transpose needed)
-            n_fans, label = csgraph.connected_components(g, directed=True, connection="strong")
-            return _fans_to_vertices(n_fans, label, topo, n_vertices)
     else:
         h1, h2 = topo.consecutive_pairs()
         a = topo.he_from[h1]
@@ -248,14 +256,17 @@ def _nonmanifold_vertices(topo: _Topology, n_vertices: int, *,
     return _fans_to_vertices(n_fans, label, topo, n_vertices)
 
 
-def _fans_to_vertices(n_fans: int, label: np.ndarray, topo: _Topology, n_vertices: int) -> np.ndarray:
+def _fans_to_vertices(n_fans: int, label: np.ndarray, topo: _Topology, n_vertices: int, *,
+                      label_bound: int | None = None) -> np.ndarray:
+    """Vertices with more than one fan, from a fan label per corner (labels < label_bound)."""
     out = np.zeros(n_vertices, dtype=bool)
     corner_vertex = topo.faces.reshape(-1)
     n_ref = int(np.count_nonzero(np.bincount(corner_vertex, minlength=n_vertices)))
     if n_fans == n_ref:  # every vertex has exactly one fan
         return out
-    pair = np.unique(corner_vertex * np.int64(n_fans) + label)
-    fans_per_vertex = np.bincount(pair // n_fans, minlength=n_vertices)
+    bound = np.int64(n_fans if label_bound is None else label_bound)
+    pair = np.unique(corner_vertex * bound + label)
+    fans_per_vertex = np.bincount(pair // bound, minlength=n_vertices)
     return fans_per_vertex > 1
 
 
