@@ -140,4 +140,27 @@ def test_label_volume_row_per_label(files, capsys):
         pytest.skip("shapedesc.mesh.volume.label_to_surface not written yet")
     assert code == 0 and rows[0]["verdict"] == "usable"
     assert rows[0]["euler_characteristic"] == 2
-    assert any(k.startswith("volume_") for k in rows[0])
+    assert rows[0]["volume_voxels_in_label"] == 27  # the 3x3x3 block written above
+
+
+def test_ring_label_goes_through_the_topology_fix(tmp_path, capsys):
+    pytest.importorskip("shapedesc.mesh.volume", reason="volume path not written yet")
+    # a voxel ring (a solid torus, genus 1) and a block, with a negative-determinant affine
+    x, y, z = np.mgrid[:30, :30, :16]
+    data = np.zeros((30, 30, 16), np.int16)
+    r = np.hypot(x - 15, y - 15)
+    data[(np.abs(r - 8) < 2.5) & (np.abs(z - 8) < 3)] = 7
+    data[2:6, 2:6, 2:6] = 3
+    aff = np.diag([-1.0, 1.2, 1.5, 1.0])
+    p = tmp_path / "ring.nii.gz"
+    nib.save(nib.Nifti1Image(data, aff), str(p))
+    code, rows = _json(capsys, [p])
+    assert code == 0 and [r["label"] for r in rows] == [3, 7]
+    ring = rows[1]
+    # closed form: a solid torus's boundary has χ = 0; the fix must give a sphere (χ = 2)
+    assert ring["volume_euler_characteristic_before"] == 0
+    assert ring["euler_characteristic"] == 2 and ring["genus"] == 0 and ring["verdict"] == "usable"
+    changed = ring["volume_voxels_added_by_topology_fix"] + ring["volume_voxels_removed_by_topology_fix"]
+    assert changed > 0
+    assert main(["-q", "check", "--label", "7", str(p)]) == 0
+    assert "topology_fix" in capsys.readouterr().out
