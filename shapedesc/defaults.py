@@ -195,6 +195,11 @@ REPORT_DPI: int = 110
 #: (Figures mark corrected-significant degrees and regions at the stats section's
 #: DEFAULT_ALPHA, so a figure and the log of `compare` always agree.)
 
+#: Percentile of |value| that sets the symmetric colour limits of surface maps (%).
+#: 99 keeps a few extreme vertices from washing out a map; values beyond are drawn in
+#: the end colours and the colour bar shows arrows (common practice).
+SURFACE_COLOUR_PERCENTILE: float = 99.0
+
 #: Ambient and diffuse weights of the Lambert shading of surface renders (unitless,
 #: sum 1 so a face turned to the light keeps its full colour; common practice).
 SURFACE_AMBIENT: float = 0.35

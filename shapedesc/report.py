@@ -246,7 +246,10 @@ h1{font-size:1.6em;margin-bottom:.2em}h2{border-bottom:1px solid #999;margin-top
 h3{margin-top:1.2em}
 .tablewrap{overflow-x:auto;margin:.6em 0}
 table{border-collapse:collapse;font-size:.82em}
-th,td{border:1px solid #bbb;padding:.15em .45em;text-align:left;vertical-align:top}
+
+th,td{border:1px solid #bbb;padding:.15em .45em;text-align:left;vertical-align:top;
+max-width:32em}
+table{width:max-content;max-width:none}
 th{background:#eee}tr.sig td{font-weight:bold;background:#fdf1e6}
 .tcap{font-weight:bold;margin:.8em 0 .2em 0;font-size:.9em}
 figure{margin:1em 0}img{max-width:100%;height:auto;border:1px solid #ddd}

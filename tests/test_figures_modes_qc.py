@@ -86,6 +86,7 @@ def test_qc_caption_prints_the_table_numbers():
     text, warn = qc_caption({**row, "pose_warning": "axes 1 and 2 nearly equal"})
     assert warn and "pose warning" in text
     assert qc_caption({**row, "n_flipped": 3})[1]
+    assert not qc_caption({**row, "pose_warning": "n/a"})[1]  # describe's "no warning"
 
 
 def test_gallery_orders_worst_first_and_lists_failures():

@@ -169,3 +169,18 @@ def test_render_surface_figure_writes_files(tmp_path):
         render_surface_figure(v, f, tmp_path / "t.png", scalars=np.zeros(3))
     with pytest.raises(ValueError, match="face indices"):
         render_surface_figure(v, f + 1000, tmp_path / "t.png")
+
+
+def test_colour_limits_resist_a_few_extreme_vertices():
+    # 99th percentile of |value| (numpy.percentile) sets the limits; the colour bar
+    # shows arrows because values lie beyond them.
+    v, f = _ellipsoid()
+    s = v[:, 1] / 20.0  # -1 .. 1 mm
+    s[:3] = [40.0, -40.0, 35.0]  # three wild vertices
+    fig = plot_surface_grid([SurfaceRow("x", v, f, s)])
+    lo, hi = fig.axes[-1].get_ylim()
+    expected = np.percentile(np.abs(s), 99.0)
+    assert hi == pytest.approx(expected) and lo == pytest.approx(-expected)
+    assert hi < 2.0
+    cb = fig.axes[-1]._colorbar
+    assert cb.extend == "both"

@@ -427,17 +427,15 @@ def _start_chromium(exe: str, profile: Path):
     return proc, None
 
 
-@pytest.mark.slow
-def test_report_renders_in_headless_chromium(report, tmp_path):
-    """Load the report in headless Chromium: no console errors, every image decodes,
-    no request leaves the file, and the screenshot is not blank."""
+def _browser_check(path: Path, tmp_path: Path, *, min_images: int) -> None:
+    """Load ``path`` in headless Chromium: no console errors, every image decodes, no
+    request leaves the file, and the screenshot is not blank."""
     import urllib.request
 
     exe = _chromium()
     if exe is None:
         pytest.skip("no Chromium on PATH: install the Debian package `chromium` "
                     "(.ci/run does) to run the browser test")
-    path, _ = report
     proc, port = _start_chromium(exe, tmp_path / "profile")
     try:
         if port is None:
@@ -474,7 +472,7 @@ def test_report_renders_in_headless_chromium(report, tmp_path):
     requests = [e["params"]["request"]["url"] for e in cdp.events
                 if e.get("method") == "Network.requestWillBeSent"]
     assert all(u.startswith(("file:", "data:")) for u in requests), requests
-    assert len(sizes) >= 6 and all(w > 0 and h > 0 for w, h in sizes)
+    assert len(sizes) >= min_images and all(w > 0 and h > 0 for w, h in sizes)
     with Image.open(io.BytesIO(base64.b64decode(shot["data"]))) as im:
         px = np.asarray(im.convert("L"), dtype=float)
     # Not blank: a page of text, tables and figures has many grey levels and ink on a
@@ -482,6 +480,35 @@ def test_report_renders_in_headless_chromium(report, tmp_path):
     assert px.shape[0] > 500 and px.shape[1] > 500
     assert len(np.unique(px)) > 32
     assert np.mean(px < 200) > 0.01
+
+
+def test_report_renders_in_headless_chromium(report, tmp_path):
+    path, _ = report
+    _browser_check(path, tmp_path, min_images=6)
+
+
+@pytest.mark.slow
+def test_demo_report_renders_in_headless_chromium(tmp_path, full, monkeypatch):
+    """The report ``shapedesc demo`` writes, in the browser (reduced study by default)."""
+    from shapedesc.cli.main import COMMANDS, main
+
+    if "demo" not in COMMANDS:
+        pytest.skip("demo is not registered in cli/main.py COMMANDS yet")
+    if _chromium() is None:
+        pytest.skip("no Chromium on PATH: install the Debian package `chromium`")
+    from shapedesc.cli import demo
+    from shapedesc.demo_study import generate_demo_study
+
+    if not full:  # reduced: a small generated study instead of the bundled one
+        small = tmp_path / "small" / "study"
+        generate_demo_study(small, n_per_group=3, level=2, n_volumes=0, voxel_mm=1.0, rng=3)
+        monkeypatch.setattr(demo, "bundled_study", lambda: small)
+    out = tmp_path / "demo"
+    main(["-q", "demo", "-o", str(out), "--jobs", "1"])
+    report = out / "report.html"
+    if not report.is_file():
+        pytest.skip("the demo wrote no report.html (describe/compare not complete yet)")
+    _browser_check(report, tmp_path, min_images=2)
 
 
 def test_report_command_in_process(study, tmp_path, capsys):

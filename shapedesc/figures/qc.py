@@ -86,7 +86,7 @@ def qc_caption(row: Mapping, *, note: str = "") -> tuple[str, bool]:
             parts.append(fmt.format(x) + unit)
     warn = False
     pose = row.get("pose_warning")
-    if isinstance(pose, str) and pose.strip() and pose.strip().lower() != "nan":
+    if isinstance(pose, str) and pose.strip().lower() not in ("", "nan", "n/a", "none"):
         parts.append("pose warning")
         warn = True
     if str(row.get("pose_unstable", "")).strip().lower() in ("true", "1"):

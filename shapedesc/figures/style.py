@@ -131,14 +131,17 @@ def group_style(index: int) -> dict:
     }
 
 
-def symmetric_limits(values: np.ndarray, *, floor: float = 1e-12) -> tuple[float, float]:
-    """Colour limits ``(-m, m)`` with ``m`` the largest finite magnitude in ``values``.
+def symmetric_limits(values: np.ndarray, *, percentile: float = 100.0,
+                     floor: float = 1e-12) -> tuple[float, float]:
+    """Colour limits ``(-m, m)``, ``m`` the given percentile of the finite magnitudes.
 
-    ``floor`` keeps the range non-empty when every value is zero.
+    ``percentile=100`` takes the largest magnitude; a lower one keeps a few extreme
+    vertices from washing out the rest of a map (draw the colour bar with
+    ``extend="both"`` then).  ``floor`` keeps the range non-empty when all are zero.
     """
     v = np.asarray(values, dtype=float)
     v = v[np.isfinite(v)]
-    m = float(np.max(np.abs(v))) if v.size else 0.0
+    m = float(np.percentile(np.abs(v), percentile)) if v.size else 0.0
     m = max(m, floor)
     return -m, m
 

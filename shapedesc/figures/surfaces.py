@@ -31,7 +31,7 @@ from matplotlib.cm import ScalarMappable
 from matplotlib.collections import LineCollection, PolyCollection
 from matplotlib.colors import Colormap, Normalize
 
-from shapedesc.defaults import SURFACE_AMBIENT, SURFACE_DIFFUSE
+from shapedesc.defaults import SURFACE_AMBIENT, SURFACE_COLOUR_PERCENTILE, SURFACE_DIFFUSE
 from shapedesc.figures import style
 
 _AXIS_LETTERS_RAS = {(0, 1): "R", (0, -1): "L", (1, 1): "A", (1, -1): "P", (2, 1): "S", (2, -1): "I"}
@@ -429,7 +429,9 @@ def plot_surface_grid(rows, *, views=None, hemisphere: str = "left",
     scalar_label, units : str
         Colour-bar label, printed as ``"<scalar_label> (<units>)"``.
     limits : (float, float), optional
-        Colour limits; default symmetric, ± the largest magnitude over all rows.
+        Colour limits; default symmetric around zero at ± the
+        :data:`shapedesc.defaults.SURFACE_COLOUR_PERCENTILE` percentile of the
+        magnitudes over all rows (the colour bar gets arrows when values lie beyond).
     cmap : Colormap or str, optional
         Default :data:`shapedesc.figures.style.DIVERGING_CMAP`.
     significance_style : {"outline", "mask"}
@@ -454,11 +456,16 @@ def plot_surface_grid(rows, *, views=None, hemisphere: str = "left",
         s, sig = _check_values(v, r.scalars, r.significant, what=what)
         checked.append(((v, f), SurfaceRow(r.label, v, f, s, sig)))
     with_scalars = [r.scalars for _, r in checked if r.scalars is not None]
-    norm = None
+    norm, extend = None, "neither"
     if with_scalars:
+        every = np.concatenate(with_scalars)
         lo, hi = limits if limits is not None else style.symmetric_limits(
-            np.concatenate(with_scalars))
+            every, percentile=SURFACE_COLOUR_PERCENTILE)
         norm = Normalize(lo, hi)
+        finite = every[np.isfinite(every)]
+        below, above = bool(np.any(finite < lo)), bool(np.any(finite > hi))
+        extend = {(True, True): "both", (True, False): "min", (False, True): "max"}.get(
+            (below, above), "neither")
     cmap = style.DIVERGING_CMAP if cmap is None else cmap
     if isinstance(cmap, str):
         import matplotlib
@@ -490,7 +497,7 @@ def plot_surface_grid(rows, *, views=None, hemisphere: str = "left",
                         _scale_bar(ax, radius)
         if norm is not None:
             cax = fig.add_subplot(gs[:, -1])
-            cb = fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), cax=cax)
+            cb = fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), cax=cax, extend=extend)
             cb.set_label(f"{scalar_label} ({units})")
         if title:
             fig.suptitle(title, y=1.0 - 0.08 / height, va="top")
