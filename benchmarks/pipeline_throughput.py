@@ -58,6 +58,11 @@ def _make_study(root: Path, n: int, frequency: int, seed: int = 7) -> Path:
     return root / "manifest.tsv", len(u)
 
 
+def _entries(cache: Path) -> int:
+    """Finished cache entries (not the hidden temporary file of a write in progress)."""
+    return sum(1 for p in cache.rglob("*.json") if not p.name.startswith("."))
+
+
 def _tables(outdir: Path) -> dict[str, bytes]:
     return {str(p.relative_to(outdir)): p.read_bytes() for p in sorted(outdir.rglob("*"))
             if p.is_file() and ".cache" not in p.parts}
@@ -80,12 +85,12 @@ def _kill_at_half(manifest_path: Path, outdir: Path, n: int, jobs: int) -> tuple
     t0 = time.perf_counter()
     cache = outdir / ".cache"
     while proc.poll() is None:
-        if cache.is_dir() and len(list(cache.rglob("*.json"))) >= n // 2:
+        if cache.is_dir() and _entries(cache) >= n // 2:
             break
         time.sleep(0.05)
     os.killpg(proc.pid, signal.SIGKILL)
     proc.wait()
-    return len(list(cache.rglob("*.json"))), time.perf_counter() - t0
+    return _entries(cache), time.perf_counter() - t0
 
 
 def main(argv=None) -> int:

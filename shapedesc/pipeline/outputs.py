@@ -7,7 +7,9 @@ Layout::
       spectra.tsv                subject, structure, carried columns, l1 .. lL (normalised)
       spectra_mm2.tsv            same layout, energies in mm^2
       shape.tsv                  subject, structure, carried columns, scalar shape indices
-      qc.tsv                     subject, structure, input, QC measures, warnings
+      qc.tsv                     subject, structure, input, QC measures (map distortion,
+                                 flips, fit residuals, pose, repairs; ``volume_*`` from the
+                                 label-volume surface report), warnings; no timings
       failures.tsv               subject, structure, input, stage, error
       coefficients/<subject>_<structure>.npz   (+ its metadata file, if separate)
       run.json                   parameters, versions, input SHA-256, counts

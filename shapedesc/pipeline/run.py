@@ -247,6 +247,20 @@ def _execute_dask(tasks: list[dict], scheduler: str):
         client.close()
 
 
+def _remove_partial_files(outdir: Path) -> None:
+    """Delete temporary files an interrupted atomic write left (``.<name>.<random>.part*``,
+    see :mod:`shapedesc.io.atomic`) in the folders this pipeline writes."""
+    folders = [outdir, outdir / COEFFICIENTS]
+    cache_root = outdir / CACHE_DIRNAME
+    if cache_root.is_dir():
+        folders += [cache_root] + [p for p in cache_root.iterdir() if p.is_dir()]
+    for folder in folders:
+        if folder.is_dir():
+            for p in folder.glob(".*.part*"):
+                if p.is_file():
+                    p.unlink()
+
+
 def run_study(manifest: Manifest, outdir: str | Path, *,
               parameters: DescribeParameters | None = None, jobs: int = 1,
               scheduler: str | None = None, force: bool = False,
@@ -288,6 +302,7 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
     outdir = Path(outdir).resolve()
     check_outdir(outdir, parameters=params, inputs=list(manifest.inputs), force=force)
     outdir.mkdir(parents=True, exist_ok=True)
+    _remove_partial_files(outdir)
     write_json(outdir / DESCRIPTION, dataset_description())
     cache = ResultCache(outdir / CACHE_DIRNAME)
 
