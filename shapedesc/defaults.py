@@ -100,6 +100,12 @@ SMOOTHING_ITERATIONS: int = 10
 TAUBIN_LAMBDA: float = 0.5
 TAUBIN_MU: float = -0.53
 
+#: Largest normal offset used to give smoothed surfaces their pre-smoothing volume back
+#: (voxels). Half a voxel restores strands one voxel thick (which any Laplacian filter
+#: thins) while keeping the offset below the half-thickness of the thinnest part a voxel
+#: set can have, so the surface cannot pass through itself (common practice).
+SMOOTHING_MAX_OFFSET_VOXELS: float = 0.5
+
 # --------------------------------------------------------------------------- sphere
 #: Lower clamp of the cotangent edge weights, as a fraction of the mean weight
 #: (dimensionless). Keeps every weight positive so the harmonic initial map is an
