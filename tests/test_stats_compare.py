@@ -1,0 +1,71 @@
+"""Study-level comparison (library): three groups (F and Pillai), degree parsing, inputs."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from shapedesc.errors import StatsInputError
+from shapedesc.stats.compare import compare_spectra, log_energies, parse_degrees
+
+sm = pytest.importorskip("statsmodels.api")
+
+
+def _three_groups(n=45, lmax=6, seed=0):
+    rng = np.random.default_rng(seed)
+    grp = np.array(["ctl", "mci", "ad"])[np.arange(n) % 3]
+    age = rng.normal(70, 6, n)
+    loge = -2.0 * np.log(np.arange(1, lmax + 1)) + rng.normal(0, 0.2, size=(n, lmax))
+    loge[grp == "ad", 2] += 0.4  # degree 3
+    t = pd.DataFrame({"subject": [f"s{i}" for i in range(n)], "structure": "putamen",
+                      "group": grp, "age": age})
+    for k in range(lmax):
+        t[f"l{k + 1}"] = np.exp(loge[:, k])
+    return t
+
+
+def test_three_groups_f_tests_match_statsmodels():
+    t = _three_groups()
+    res = compare_spectra(t, group="group", covariates=["age"], degrees="2-6",
+                          n_permutations=500, classification_permutations=5, rng=1)
+    sc = res.structures[0]
+    dt = sc.degree_tests
+    assert "F" in dt.columns and "hedges_g" not in dt.columns
+    assert sc.design.levels == ("ad", "ctl", "mci")  # sorted; "ad" is the reference
+    y = log_energies(t, [2, 3, 4, 5, 6])
+    for j, row in dt.iterrows():
+        # Source: statsmodels OLS f_test of the two group indicators on log(l_k)
+        ref = sm.OLS(y[:, j], sc.design.matrix).fit().f_test(sc.design.contrast.T)
+        # 1e-10 relative: float64 rounding of two solvers
+        assert row["F"] == pytest.approx(float(np.squeeze(ref.fvalue)), rel=1e-10)
+        assert row["p_parametric"] == pytest.approx(float(np.squeeze(ref.pvalue)), rel=1e-8)
+    assert dt.set_index("degree").loc[3, "p_fwer"] < 0.05
+    assert sc.global_test["statistic_name"] == "pillai_trace"
+    assert sc.classification["levels"] == "ad,ctl,mci"
+
+
+def test_parse_degrees():
+    avail = list(range(1, 16))
+    assert parse_degrees("2-15", avail) == tuple(range(2, 16))
+    assert parse_degrees("2-4, 8", avail) == (2, 3, 4, 8)
+    assert parse_degrees(None, avail) == tuple(range(2, 16))
+    for bad, msg in (("0-3", "degree 0"), ("2-20", "requested"), ("5-2", "backwards"),
+                     ("two", "cannot read")):
+        with pytest.raises(StatsInputError, match=msg):
+            parse_degrees(bad, avail)
+
+
+def test_table_problems_are_named():
+    t = _three_groups()
+    t.loc[4, "l3"] = 0.0
+    with pytest.raises(StatsInputError, match=r"l3 has 1 .*rows s4"):
+        compare_spectra(t, group="group", degrees="2-6", n_permutations=10)
+    t = _three_groups()
+    dup = pd.concat([t, t.iloc[[0]]], ignore_index=True)
+    with pytest.raises(StatsInputError, match="repeated"):
+        compare_spectra(dup, group="group", n_permutations=10)
+    with pytest.raises(StatsInputError, match="structure"):
+        compare_spectra(t, group="group", structures=["caudate"], n_permutations=10)
+    with pytest.raises(StatsInputError, match="site column 'scanner' not found"):
+        compare_spectra(t, group="group", site="scanner", n_permutations=10)
