@@ -18,15 +18,16 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from ..defaults import SPHERE_SHEAR_WEIGHT
-from ..errors import SphereMapError
+from ..defaults import SPHERE_CROWDING_OFFSETS, SPHERE_MIN_REL_DET, SPHERE_SHEAR_WEIGHT
+from ..errors import ConvergenceError, SphereMapError
 from ..mesh.measures import vertex_areas
 from . import qc as _qc
 from .area import AreaProblem
-from .conformal import conformal_sphere_map
+from .conformal import conformal_sphere_map, sphere_face_det
 from .laplacian import clamped_cotangent_laplacian
 from .mobius import mobius_centre
 from .multires import correct_area_multires
+from .crowding import offset_copy
 from .topology import check_sphere_topology
 
 __all__ = ["SphereMap", "SphereMapQC", "map_to_sphere"]
@@ -95,7 +96,9 @@ class SphereMap:
         Mean absolute angle change (degrees) of the corners at each vertex (for figures).
     parameters : dict
         ``shear_weight``, ``iterations``, ``solver``, ``ordering``, ``puncture_face``,
-        ``pole_correction_used``, ``mobius_iterations``, ``levels``, ``source``.
+        ``pole_correction_used``, ``mobius_iterations``, ``crowding_offset_edges`` (offset,
+        in mean edge lengths, of the copy whose weights gave the initial map; 0 = the
+        surface itself; see :mod:`.crowding`), ``levels``, ``source``.
     """
 
     sphere_vertices: np.ndarray
@@ -154,12 +157,28 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     # work in a translation/scale-normalised copy: only intrinsic ratios enter
     vn = (v - v.mean(axis=0)) / np.sqrt(np.mean(np.sum((v - v.mean(axis=0)) ** 2, axis=1)))
 
-    conf = conformal_sphere_map(vn, f, source=source)
-    t1 = time.perf_counter()
-    x, mob_it = mobius_centre(conf.sphere_vertices, vertex_areas(vn, f),
-                              what=f"{source}: Möbius centring")
+    va = vertex_areas(vn, f)
+    offset_used = 0
+    t_centre = 0.0
+    for lam in SPHERE_CROWDING_OFFSETS:
+        weights_from = offset_copy(vn, f, lam)
+        conf = conformal_sphere_map(vn, f, source=source, weight_vertices=weights_from)
+        tc = time.perf_counter()
+        x, mob_it = mobius_centre(conf.sphere_vertices, va, what=f"{source}: Möbius centring")
+        t_centre += time.perf_counter() - tc
+        det = sphere_face_det(x, f)
+        if det.min() > SPHERE_MIN_REL_DET * det.mean():
+            offset_used = lam
+            break
+    else:
+        raise ConvergenceError(
+            f"{source}: conformal map (crowding): even the map with the weights of an offset "
+            f"copy ({SPHERE_CROWDING_OFFSETS[-1]} edge lengths) has {int((det <= 0).sum())} faces "
+            "collapsed below double precision; the surface may have extremely thin parts — "
+            "check the segmentation")
     flips_mobius = _qc.count_flipped(x, f)
     t2 = time.perf_counter()
+    t1 = t2 - t_centre
     L = clamped_cotangent_laplacian(vn, f)
     problem = AreaProblem(vn, f, shear_weight=shear_weight, laplacian=L, what=source)
     res = correct_area_multires(problem, x, surface_vertices=vn)
@@ -193,5 +212,6 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
               "solver": "L-BFGS (Laplacian-preconditioned), backtracking line search",
               "ordering": "see shapedesc.sphere.linsolve", "puncture_face": conf.puncture_face,
               "pole_correction_used": conf.pole_correction_used,
-              "mobius_iterations": int(mob_it), "levels": list(res.levels), "source": source}
+              "mobius_iterations": int(mob_it),
+              "crowding_offset_edges": int(offset_used), "levels": list(res.levels), "source": source}
     return SphereMap(xs, f, qc, lr, v_lr, _qc.vertex_mean(f, ang, len(v)), params)

@@ -240,6 +240,7 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
     hist_s, hist_y = [], []
     energies = [e]
     it = 0
+    gamma = None
     converged = False
     while it < max_iter:
         it += 1
@@ -253,9 +254,16 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
             q -= a * y
         r = problem.precondition(q, x) if precondition else q
         if hist_s:
-            s, y = hist_s[-1], hist_y[-1]
-            hy = problem.precondition(y, x) if precondition else y
-            r *= np.vdot(s, y) / np.vdot(y, hy)
+            # scaling γ = sᵀy / yᵀH₀y of the initial inverse Hessian (Nocedal & Wright
+            # eq. 7.20); with a preconditioner it costs a solve, so it is refreshed only
+            # every few iterations (it changes slowly)
+            if gamma is None or it % 8 == 0 or not precondition:
+                s, y = hist_s[-1], hist_y[-1]
+                hy = problem.precondition(y, x) if precondition else y
+                gamma = np.vdot(s, y) / np.vdot(y, hy)
+            r *= gamma
+        else:
+            gamma = None
         for (s, y), a in zip(zip(hist_s, hist_y), reversed(alphas)):
             rho = 1.0 / np.vdot(y, s)
             b = rho * np.vdot(y, r)
@@ -265,6 +273,7 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
         if not slope < 0:  # not a descent direction: restart with the preconditioned gradient
             hist_s.clear()
             hist_y.clear()
+            gamma = None
             d = -(problem.precondition(g, x) if precondition else g)
             slope = np.vdot(g, d)
         if not hist_s:

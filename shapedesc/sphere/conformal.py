@@ -199,8 +199,8 @@ def _most_regular_face(vertices: np.ndarray, faces: np.ndarray) -> int:
 
 
 def conformal_sphere_map(vertices: np.ndarray, faces: np.ndarray, *, source: str = "<memory>",
-                         pole_fixed_fraction: float = SPHERE_POLE_FIXED_FRACTION
-                         ) -> ConformalResult:
+                         pole_fixed_fraction: float = SPHERE_POLE_FIXED_FRACTION,
+                         weight_vertices: np.ndarray | None = None) -> ConformalResult:
     """Conformal map of a validated genus-0 mesh to the unit sphere (steps 1–3 above).
 
     Parameters
@@ -214,12 +214,17 @@ def conformal_sphere_map(vertices: np.ndarray, faces: np.ndarray, *, source: str
         Surface name for error messages.
     pole_fixed_fraction : float
         Share of vertices fixed in the pole correction.
+    weight_vertices : ndarray, shape (V, 3), optional
+        Geometry the Laplacian weights and the pinned triangle are taken from (default
+        ``vertices``; an offset copy against crowding, see :mod:`.crowding`).
 
     Returns
     -------
     ConformalResult
     """
     n = len(vertices)
+    if weight_vertices is not None:
+        vertices = weight_vertices
     L = clamped_cotangent_laplacian(vertices, faces).tocsr()
     big = _most_regular_face(vertices, faces)
     p1, p2, p3 = (int(i) for i in faces[big])

@@ -82,18 +82,22 @@ def locate_on_sphere(sphere_vertices: np.ndarray, faces: np.ndarray, points: np.
     while len(todo):
         _, cand = tree.query(pts[todo], k=kk)
         cand = cand.reshape(len(todo), kk)
-        tri = sv[faces[cand]]  # (m, kk, 3, 3)
-        p = np.broadcast_to(pts[todo][:, None, :], (len(todo), kk, 3))
-        w = radial_barycentric(tri[..., 0, :], tri[..., 1, :], tri[..., 2, :], p)
-        # the point must be on the front side (p·centroid > 0) and inside
-        front = np.einsum("mki,mki->mk", p, tri.mean(axis=2)) > 0
-        ok = (w.min(axis=-1) >= -_INSIDE_TOL) & front
-        hit = ok.any(axis=1)
-        first = np.argmax(ok, axis=1)
-        rows = np.flatnonzero(hit)
-        face_index[todo[rows]] = cand[rows, first[rows]]
-        bary[todo[rows]] = w[rows, first[rows]]
-        todo = todo[~hit]
+        # try candidates column by column (nearest first) on the still-unresolved points
+        left = np.arange(len(todo))
+        for j in range(kk):
+            if not len(left):
+                break
+            fc = cand[left, j]
+            tri = faces[fc]
+            p = pts[todo[left]]
+            a, b, c = sv[tri[:, 0]], sv[tri[:, 1]], sv[tri[:, 2]]
+            w = radial_barycentric(a, b, c, p)
+            front = np.einsum("ij,ij->i", p, a + b + c) > 0
+            ok = (w.min(axis=1) >= -_INSIDE_TOL) & front
+            face_index[todo[left[ok]]] = fc[ok]
+            bary[todo[left[ok]]] = w[ok]
+            left = left[~ok]
+        todo = todo[left]
         if kk == len(faces):
             break
         kk = min(kk * 4, len(faces))

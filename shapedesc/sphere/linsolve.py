@@ -31,12 +31,13 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from ..defaults import SPHERE_LU_ORDERING
 from ..errors import ConvergenceError
 
 __all__ = ["factorise"]
 
 
-def factorise(matrix: sp.spmatrix, *, what: str, ordering: str = "COLAMD"):
+def factorise(matrix: sp.spmatrix, *, what: str, ordering: str = SPHERE_LU_ORDERING):
     """Real sparse LU of ``matrix`` (SuperLU, given column ordering); returns ``solve(b)``.
 
     Parameters

@@ -67,21 +67,20 @@ def _coarse_step(problem: AreaProblem, x: np.ndarray, surface_vertices: np.ndarr
     cv, cf = icosphere(level)
     det = problem.dets(x)
     share = det / det.sum()
-    # 1. surface-area share per coarse face
+    # 1. surface-area share per coarse face; grid positions of the fine vertices
     cen = _normalise(x[f].mean(axis=1))
-    fi, _ = locate_on_sphere(cv, cf, cen)
+    ci, cw = locate_on_sphere(cv, cf, np.concatenate([cen, x]))
+    fi, ti, tw = ci[:len(f)], ci[len(f):], cw[len(f):]
     count = np.bincount(fi, minlength=len(cf))
     mass = np.bincount(fi, weights=problem.a, minlength=len(cf))
-    sparse = count < SPHERE_MULTIRES_MIN_COUNT
-    if sparse.any():
-        ccen = _normalise(cv[cf[sparse]].mean(axis=1))
-        gi, _ = locate_on_sphere(x, f, ccen)
-        cdet = np.einsum("ij,ij->i", cv[cf[sparse, 0]],
-                         np.cross(cv[cf[sparse, 1]], cv[cf[sparse, 2]]))
-        cshare = cdet / np.einsum("ij,ij->i", cv[cf[:, 0]], np.cross(cv[cf[:, 1]], cv[cf[:, 2]])).sum()
-        mass[sparse] = problem.a[gi] / share[gi] * cshare
-    # resampled coarse surface (pull-back of the grid vertices through the current map)
-    vi, w = locate_on_sphere(x, f, cv)
+    sparse = np.flatnonzero(count < SPHERE_MULTIRES_MIN_COUNT)
+    ccen = _normalise(cv[cf[sparse]].mean(axis=1))
+    # resampled coarse surface: pull-back of the grid vertices through the current map
+    gi, gw = locate_on_sphere(x, f, np.concatenate([cv, ccen]))
+    vi, w, gi = gi[:len(cv)], gw[:len(cv)], gi[len(cv):]
+    if len(sparse):
+        cdet_all = np.einsum("ij,ij->i", cv[cf[:, 0]], np.cross(cv[cf[:, 1]], cv[cf[:, 2]]))
+        mass[sparse] = problem.a[gi] / share[gi] * (cdet_all[sparse] / cdet_all.sum())
     cpos = np.einsum("nk,nki->ni", w, surface_vertices[f[vi]])
     coarse = AreaProblem(cpos, cf, shear_weight=problem.w,
                          laplacian=clamped_cotangent_laplacian(cv, cf),
@@ -89,7 +88,6 @@ def _coarse_step(problem: AreaProblem, x: np.ndarray, surface_vertices: np.ndarr
     # 2. coarse solve from the identity
     res = correct_area(coarse, cv, max_iter=SPHERE_MULTIRES_COARSE_ITER, raise_on_budget=False)
     # 3. compose: fine vertices through the coarse piecewise-linear map
-    ti, tw = locate_on_sphere(cv, cf, x)
     disp = res.sphere_vertices - cv
     e0 = problem.energy(x, det)
     t = 1.0

@@ -12,7 +12,7 @@ import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
 from ..errors import MeshGeometryError, MeshTopologyError
-from ..mesh.measures import enclosed_volume, euler_characteristic, unique_edges
+from ..mesh.measures import enclosed_volume
 
 __all__ = ["check_sphere_topology"]
 
@@ -60,7 +60,14 @@ def check_sphere_topology(vertices: np.ndarray, faces: np.ndarray, *, source: st
     if not used.all():
         raise MeshGeometryError(f"{source}: {int((~used).sum())} vertices belong to no face; "
                                 "drop unreferenced vertices before mapping")
-    edges, counts = unique_edges(f)
+    nv = np.int64(len(v))
+    i = np.concatenate([f[:, 0], f[:, 1], f[:, 2]])
+    j = np.concatenate([f[:, 1], f[:, 2], f[:, 0]])
+    directed = np.sort(i * nv + j)  # 1-D keys: much faster than unique rows
+    if np.any(directed[1:] == directed[:-1]):
+        raise MeshTopologyError(f"{source}: faces are not consistently oriented (a directed edge "
+                                "occurs twice); orient the faces coherently first")
+    und, counts = np.unique(np.minimum(i, j) * nv + np.maximum(i, j), return_counts=True)
     if np.any(counts == 1):
         raise MeshTopologyError(f"{source}: surface is open ({int((counts == 1).sum())} boundary "
                                 "edges); only closed surfaces can be mapped to the sphere — "
@@ -68,16 +75,13 @@ def check_sphere_topology(vertices: np.ndarray, faces: np.ndarray, *, source: st
     if np.any(counts > 2):
         raise MeshTopologyError(f"{source}: {int((counts > 2).sum())} non-manifold edges (shared "
                                 "by more than two faces); repair the mesh first")
-    directed = np.concatenate([f[:, [0, 1]], f[:, [1, 2]], f[:, [2, 0]]])
-    if len(np.unique(directed, axis=0)) != len(directed):
-        raise MeshTopologyError(f"{source}: faces are not consistently oriented (a directed edge "
-                                "occurs twice); orient the faces coherently first")
-    adj = sp.coo_matrix((np.ones(len(edges)), (edges[:, 0], edges[:, 1])), shape=(len(v),) * 2)
+    ea, eb = und // nv, und % nv
+    adj = sp.coo_matrix((np.ones(len(und)), (ea, eb)), shape=(len(v),) * 2)
     n_comp, _ = connected_components(adj, directed=False)
     if n_comp != 1:
         raise MeshTopologyError(f"{source}: mesh has {n_comp} connected components; map each "
                                 "structure separately")
-    chi = euler_characteristic(len(v), f)
+    chi = len(v) - len(und) + len(f)  # Euler characteristic V − E + F
     if chi != 2:
         raise MeshTopologyError(f"{source}: Euler characteristic is {chi} (genus "
                                 f"{(2 - chi) / 2:g}); only genus-0 surfaces (χ = 2) map to the "
