@@ -272,6 +272,15 @@ def test_hemisphere_white_matter(wm_left, full):
         assert r.mesh_volume_mm3 == pytest.approx(r.voxel_volume_mm3, rel=0.01)
 
 
+def test_template_surface_helper(template_dir):
+    from shapedesc.mesh.template_anatomy import template_surface
+
+    s, r = template_surface("caudate_left", data_dir=template_dir, target_vertices=800)
+    assert s.source.endswith("#caudate_left") and _trimesh_ok(s)
+    # 800 requested; the coarse grid is chosen from a square-root law and refined: 30 %
+    assert abs(s.n_vertices - 800) <= 240
+
+
 @pytest.mark.slow
 def test_deep_grey_structures(template_dir, full):
     """Putamen, caudate head and thalamus (GM > 0.5 in a box, largest blob)."""

@@ -39,7 +39,7 @@ import numpy as np
 from scipy import ndimage as ndi
 
 __all__ = ["STRUCTURE_NAMES", "TemplateStructure", "template_data_dir", "template_structure",
-           "template_structures"]
+           "template_structures", "template_surface"]
 
 _FILES = {"gm": "mni_icbm152_gm_tal_nlin_sym_09a_converted.nii.gz",
           "wm": "mni_icbm152_wm_tal_nlin_sym_09a_converted.nii.gz"}
@@ -188,3 +188,24 @@ def template_structures(names=STRUCTURE_NAMES, *, data_dir: str | Path | None = 
                         threshold: float = 0.5) -> dict[str, TemplateStructure]:
     """Several structures by name (default all); see :func:`template_structure`."""
     return {n: template_structure(n, data_dir=data_dir, threshold=threshold) for n in names}
+
+
+def template_surface(name: str, *, data_dir: str | Path | None = None, threshold: float = 0.5,
+                     **options):
+    """A template structure as a genus-0 surface (mm) through the label-volume path.
+
+    The probability map is the topology fix's evidence; ``options`` go to
+    :func:`shapedesc.mesh.volume.mask_to_surface` (``smoothing_iterations``,
+    ``target_vertices``, ``connectivity``).
+
+    Returns
+    -------
+    surface : Surface
+        Source ``"<map path>#<name>"``.
+    report : VolumeSurfaceReport
+    """
+    from shapedesc.mesh.volume import mask_to_surface
+
+    s = template_structure(name, data_dir=data_dir, threshold=threshold)
+    return mask_to_surface(s.mask, s.affine, source=f"{s.source}#{name}", evidence=s.evidence,
+                           **options)

@@ -175,8 +175,12 @@ def label_to_surface(volume, label: int, *,
                 or not np.all(data == np.round(data)):
             raise VolumeFormatError(f"{path}: label data must be integer-valued, got "
                                     f"{data.dtype}; give an integer label volume")
-    present = np.unique(data)
-    present = present[present != 0]
+    known = getattr(volume, "labels", None)  # LabelVolume lists them already
+    if known:
+        present = np.asarray(known)
+    else:
+        present = np.unique(data)
+        present = present[present != 0]
     if len(present) == 0:
         raise LabelError(f"{path}: the volume holds no labels (every voxel is 0); "
                          "check that this is a label volume and not an empty mask")
