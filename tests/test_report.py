@@ -500,15 +500,20 @@ def test_demo_report_renders_in_headless_chromium(tmp_path, full, monkeypatch):
     from shapedesc.demo_study import generate_demo_study
 
     if not full:  # reduced: a small generated study instead of the bundled one
+        # 4 per group: the demo's model has 6 columns, so compare needs 8 subjects;
+        # level 3 (642 vertices) keeps the degree-15 fit determined.
         small = tmp_path / "small" / "study"
-        generate_demo_study(small, n_per_group=3, level=2, n_volumes=0, voxel_mm=1.0, rng=3)
+        generate_demo_study(small, n_per_group=4, level=3, n_volumes=0, voxel_mm=1.0, rng=3)
         monkeypatch.setattr(demo, "bundled_study", lambda: small)
     out = tmp_path / "demo"
     main(["-q", "demo", "-o", str(out), "--jobs", "1"])
     report = out / "report.html"
     if not report.is_file():
         pytest.skip("the demo wrote no report.html (describe/compare not complete yet)")
-    _browser_check(report, tmp_path, min_images=2)
+    text = report.read_text(encoding="utf-8")
+    assert "degree_tests.tsv" in text  # the compare step reached the report
+    # galleries and spectra (2 structures), effect sizes, maps and modes
+    _browser_check(report, tmp_path, min_images=8)
 
 
 def test_report_command_in_process(study, tmp_path, capsys):
