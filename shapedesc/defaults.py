@@ -88,9 +88,11 @@ OBJECT_CONNECTIVITY: int = 26
 MARCHING_CUBES_LEVEL: dict = {26: 0.125, 6: 0.875}
 
 #: Number of evidence bands (quantiles) the simple-point growth proceeds in (count).
-#: Measured on the template's hemisphere white matter: 24 bands follow the evidence
-#: closely enough that more bands change fewer than 1 in 10^4 voxels, at a third of the
-#: passes of 64 bands.
+#: Within a band the order is geometric (parity sweeps), so more bands follow the
+#: evidence more closely.  Measured on the template's left-hemisphere white matter
+#: (probability / distance evidence): 8 bands change 250 / 222 voxels, 24 bands
+#: 308 / 230, 64 bands 269 / 230, all near 0.08 % of 315,429 and in the same time
+#: (3-4 s CPU): the result is insensitive to it; 24 is a middle choice.
 TOPOLOGY_EVIDENCE_BANDS: int = 24
 
 #: Default Taubin smoothing iterations after marching cubes (count; 0 = none), with
