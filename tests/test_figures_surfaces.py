@@ -158,7 +158,7 @@ def test_outline_and_mask_styles():
     assert np.ptp(fc[~outside] @ [1, 0, -1]) > 0.05  # coloured faces keep their hue
 
 
-def test_render_surface_figure_writes_files(tmp_path):
+def test_render_surface_figure_writes_files(tmp_path, monkeypatch):
     v, f = _ellipsoid(level=2)
     out = render_surface_figure(v, f, tmp_path / "s.png", scalars=v[:, 0], also=(".svg",),
                                 title="ellipsoid", dpi=60)
@@ -167,6 +167,21 @@ def test_render_surface_figure_writes_files(tmp_path):
         render_surface_figure(v, f, tmp_path / "s.png", overwrite=False)
     with pytest.raises(ValueError, match="scalars must have shape"):
         render_surface_figure(v, f, tmp_path / "t.png", scalars=np.zeros(3))
+    import shapedesc.figures.surfaces as surfaces_module
+
+    fig_titles = []
+    real = surfaces_module.plot_surface_views
+
+    def spy(*a, **k):
+        fig = real(*a, **k)
+        fig_titles.extend(ax.get_title() for ax in fig.axes)
+        return fig
+
+    monkeypatch.setattr(surfaces_module, "plot_surface_views", spy)
+    render_surface_figure(v, f, tmp_path / "c.png", pose="canonical", dpi=40)
+    assert "from +z" in fig_titles and "lateral" not in fig_titles
+    with pytest.raises(ValueError, match="pose"):
+        render_surface_figure(v, f, tmp_path / "t.png", pose="rotated")
     with pytest.raises(ValueError, match="face indices"):
         render_surface_figure(v, f + 1000, tmp_path / "t.png")
 

@@ -533,8 +533,9 @@ def plot_surface_views(vertices, faces, *, scalars=None, significant=None, label
 
 
 def render_surface_figure(vertices, faces, path, *, scalars=None, significant=None,
-                          also: tuple[str, ...] = (), overwrite: bool = True,
-                          dpi: int | None = None, **kwargs) -> list[Path]:
+                          pose: str = "native", also: tuple[str, ...] = (),
+                          overwrite: bool = True, dpi: int | None = None,
+                          **kwargs) -> list[Path]:
     """Render one surface from the standard views and write it to ``path``.
 
     This is what ``shapedesc reconstruct ... --figure OUT.png`` calls.
@@ -548,6 +549,10 @@ def render_surface_figure(vertices, faces, path, *, scalars=None, significant=No
         ``.png`` (at :data:`shapedesc.defaults.FIGURE_DPI`), ``.svg`` or ``.pdf``.
     scalars : array_like, shape (V,), optional
     significant : array_like of bool, shape (V,), optional
+    pose : {"native", "canonical"}
+        Coordinates of ``vertices``: ``"native"`` (RAS+ input coordinates) draws the
+        anatomical :func:`standard_views`, ``"canonical"`` (ellipsoid axes along x, y,
+        z) the :func:`axis_views`.  Ignored when ``views`` is given.
     also : tuple of str
         Further formats written beside ``path`` (``(".svg",)``).
     overwrite : bool
@@ -563,6 +568,10 @@ def render_surface_figure(vertices, faces, path, *, scalars=None, significant=No
     list of Path
         Files written.
     """
+    if pose not in ("native", "canonical"):
+        raise ValueError(f"pose must be 'native' or 'canonical', got {pose!r}")
+    if pose == "canonical" and kwargs.get("views") is None:
+        kwargs["views"] = axis_views()
     fig = plot_surface_views(vertices, faces, scalars=scalars, significant=significant,
                              **kwargs)
     return style.save_figure(fig, path, also=also, dpi=dpi, overwrite=overwrite)
