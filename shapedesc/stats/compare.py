@@ -74,7 +74,9 @@ class StructureComparison:
     pca_input : str
         ``"coefficients"`` or ``"log_energy"``.
     harmonised : pandas.DataFrame or None
-        Rows of the input table (used subjects) with harmonised energies (not logs).
+        With a site column: the used rows of the input table, the tested degrees'
+        columns replaced by their harmonised energies (ComBat on the log scale, written
+        back as energies) and the untested degree columns left out.
     blocks : ndarray or None, shape (n,)
         Exchangeability blocks (site codes) used by the permutations.
     """

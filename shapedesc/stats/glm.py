@@ -6,8 +6,10 @@ complement of ``C``: the model under ``C' beta = 0``) and the tested space
 ``span(X (X'X)^-1 C)``, which is orthogonal to it.  With orthonormal bases ``Q_z`` and
 ``Q_i`` of the two, the hypothesis sum of squares is ``||Q_i' y||^2`` and the residual sum
 of squares ``||y||^2 - ||Q_z' y||^2 - ||Q_i' y||^2``; for ``s == 1`` the t statistic is
-``q_i' y / sigma_hat`` with ``q_i`` oriented along ``X (X'X)^-1 c``.  The same bases drive
-the permutation engine (:mod:`shapedesc.stats.permutation`).
+``q_i' y / sigma_hat`` with ``q_i`` oriented along ``X (X'X)^-1 c``.  These spans are
+those of the partition ``X -> [X_i, Z]`` of Winkler et al. (2014, Appendix A); only the
+spans matter for the statistics.  The same bases drive the permutation engine
+(:mod:`shapedesc.stats.permutation`).
 
 References
 ----------
