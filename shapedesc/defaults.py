@@ -74,8 +74,9 @@ MIN_SURFACE_VERTICES: int = 4
 
 # -- label volume -> genus-0 surface (shapedesc.mesh.topology, shapedesc.mesh.volume)
 #: Object adjacency of the digital-topology pair (26 -> pair (26, 6); 6 -> (6, 26)).
-#: (26, 6) is the pair under which thresholded anatomy has the fewest handles (27 vs
-#: 177 for the template's left white matter, measured in tests/test_mesh_volume.py).
+#: (26, 6) is the pair under which thresholded anatomy has the fewer handles: 27 vs
+#: 177 tunnels in the largest component of the template's left white matter (measured
+#: with topology_counts; tests/test_mesh_volume.py checks that (26, 6) has fewer).
 OBJECT_CONNECTIVITY: int = 26
 
 #: Marching-cubes iso-levels on the 0/1 voxel array for each pair (dimensionless).
