@@ -34,6 +34,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--thumbnails", type=int, default=None, metavar="N",
                    help="most QC thumbnails per structure, worst fit first (default: "
                         "shapedesc.report.MAX_THUMBNAILS)")
+    p.add_argument("--figures", metavar="DIR", default=None,
+                   help=f"also write every figure into DIR for papers: PNG at "
+                        f"{defaults.FIGURE_DPI} dpi, SVG and PDF")
     p.add_argument("--dpi", type=int, default=defaults.REPORT_DPI,
                    help=f"resolution of the embedded images (default {defaults.REPORT_DPI})")
     p.add_argument("--force", action="store_true", help="overwrite an existing report")
@@ -56,6 +59,6 @@ def run(args: argparse.Namespace) -> int:
     if thumbs < 0:
         raise ValueError(f"--thumbnails {thumbs}: give 0 or more")
     path = write_report(args.outdir, statsdir, out, force=args.force, input_root=args.inputs,
-                        dpi=args.dpi, max_thumbnails=thumbs)
+                        dpi=args.dpi, max_thumbnails=thumbs, figures_dir=args.figures)
     log.info("wrote %s (%.1f MB)", path, path.stat().st_size / 1e6)
     return 0

@@ -217,10 +217,37 @@ def _kv_table(pairs, caption: str = "") -> str:
     return html_table(pd.DataFrame(list(pairs), columns=["item", "value"]), caption=caption)
 
 
-def _img(fig, alt: str, dpi: int) -> str:
+@dataclass
+class _Output:
+    """How figures leave the report builder: embedded at ``dpi``, and optionally also
+    written as files (PNG at ``FIGURE_DPI``, SVG, PDF) into ``figures_dir``."""
+
+    dpi: int
+    figures_dir: Path | None = None
+    overwrite: bool = False
+    written: list = field(default_factory=list)
+    stems: set = field(default_factory=set)
+
+    def save(self, fig, name: str) -> None:
+        if self.figures_dir is None:
+            return
+        from shapedesc.figures.style import save_figure
+
+        base = re.sub(r"[^A-Za-z0-9._+-]+", "_", name).strip("_")[:80] or "figure"
+        stem, k = base, 1
+        while stem in self.stems:
+            k += 1
+            stem = f"{base}_{k}"
+        self.stems.add(stem)
+        self.written += save_figure(fig, self.figures_dir / f"{stem}.png",
+                                    also=(".svg", ".pdf"), overwrite=self.overwrite)
+
+
+def _img(fig, alt: str, out: _Output, name: str) -> str:
     from shapedesc.figures.style import figure_png_bytes
 
-    data = base64.b64encode(figure_png_bytes(fig, dpi=dpi)).decode("ascii")
+    out.save(fig, name)
+    data = base64.b64encode(figure_png_bytes(fig, dpi=out.dpi)).decode("ascii")
     return (f'<figure><img src="data:image/png;base64,{data}" alt="{html.escape(alt)}">'
             f"<figcaption>{html.escape(alt)}</figcaption></figure>")
 
@@ -229,14 +256,14 @@ def _note(text: str) -> str:
     return f'<p class="note">{html.escape(text)}</p>'
 
 
-def _figure_or_note(make, alt: str, dpi: int) -> str:
+def _figure_or_note(make, alt: str, out: _Output, name: str = "") -> str:
     """Draw a figure; a figure that cannot be drawn becomes a visible note, not a crash."""
     try:
         fig = make()
     except (ValueError, KeyError, OSError, RuntimeError, ImportError) as exc:
         log.warning("report: %s not drawn: %s", alt, exc)
         return _note(f"{alt}: not drawn ({exc}).")
-    return _img(fig, alt, dpi)
+    return _img(fig, alt, out, name or alt[:40])
 
 
 _CSS = """
@@ -380,7 +407,7 @@ def _thumbnails(desc: DescribeResults, structure: str, roots: list[Path], max_n:
     return thumbs, notes, len(qc)
 
 
-def _qc_section(desc: DescribeResults, roots: list[Path], dpi: int, max_thumbs: int) -> str:
+def _qc_section(desc: DescribeResults, roots: list[Path], dpi: _Output, max_thumbs: int) -> str:
     from shapedesc.figures.qc import plot_qc_gallery
     from shapedesc.figures.surfaces import view_by_name
 
@@ -415,11 +442,12 @@ def _qc_section(desc: DescribeResults, roots: list[Path], dpi: int, max_thumbs: 
                                     total=total, title=f"{structure}: input (grey) and "
                                     f"reconstruction outline (orange), worst fit first"),
             f"QC gallery of {structure}: {len(thumbs)} of {total} described items "
-            f"(lateral view of a {hemi} structure, input coordinates)", dpi))
+            f"(lateral view of a {hemi} structure, input coordinates)", dpi,
+            f"qc_gallery_{structure}"))
     return "".join(out)
 
 
-def _spectra_section(desc: DescribeResults, dpi: int) -> str:
+def _spectra_section(desc: DescribeResults, dpi: _Output) -> str:
     from shapedesc.figures.spectra import plot_group_spectra
 
     sp = desc.spectra
@@ -429,13 +457,14 @@ def _spectra_section(desc: DescribeResults, dpi: int) -> str:
     table = sp if grouped else sp.assign(group="all subjects")
     out = [_figure_or_note(lambda: plot_group_spectra(table),
                            "Mean log10 normalised energy per degree, by group, with 95 % "
-                           "confidence bands of the mean (spectra.tsv)", dpi)]
+                           "confidence bands of the mean (spectra.tsv)", dpi, "spectra")]
     mm2 = desc.spectra_mm2
     if mm2 is not None and len(mm2):
         t2 = mm2 if grouped and "group" in mm2.columns else mm2.assign(group="all subjects")
         out.append(_figure_or_note(lambda: plot_group_spectra(t2, units="mm²",
                                                               title="Shape spectra by group (mm²)"),
-                                   "Mean log10 energy per degree in mm² (spectra_mm2.tsv)", dpi))
+                                   "Mean log10 energy per degree in mm² (spectra_mm2.tsv)", dpi,
+                                   "spectra_mm2"))
     if desc.shape is not None and len(desc.shape):
         sh = desc.shape
         num = [c for c in sh.columns if c not in ("subject", "structure", "group", "age", "sex",
@@ -460,7 +489,7 @@ def _correction_text(comp: CompareResults) -> str:
     return "; ".join(parts)
 
 
-def _stats_section(comp: CompareResults | None, dpi: int) -> str:
+def _stats_section(comp: CompareResults | None, dpi: _Output) -> str:
     from shapedesc.figures.spectra import plot_effect_sizes
 
     if comp is None:
@@ -484,7 +513,8 @@ def _stats_section(comp: CompareResults | None, dpi: int) -> str:
             out.append(_figure_or_note(
                 lambda: plot_effect_sizes(dt, correction=corr, alpha=DEFAULT_ALPHA),
                 f"Hedges' g by degree with its interval (g_ci_low … g_ci_high); filled "
-                f"markers and * : {corr} ≤ {DEFAULT_ALPHA:g} (degree_tests.tsv)", dpi))
+                f"markers and * : {corr} ≤ {DEFAULT_ALPHA:g} (degree_tests.tsv)", dpi,
+                "effect_sizes"))
     else:
         out.append(_note("degree_tests.tsv: not present."))
     if comp.global_test is not None and len(comp.global_test):
@@ -541,7 +571,7 @@ def _map_structure(map_path: Path, comp: CompareResults) -> str:
     return ""
 
 
-def _vertex_maps(comp: CompareResults | None, dpi: int) -> str:
+def _vertex_maps(comp: CompareResults | None, dpi: _Output) -> str:
     from shapedesc.figures.surfaces import SurfaceRow, axis_views, plot_surface_grid
 
     if comp is None:
@@ -583,7 +613,7 @@ def _vertex_maps(comp: CompareResults | None, dpi: int) -> str:
                 f"{label}: per-vertex {stat_name} statistic of the normal displacement on the "
                 f"overall mean surface (canonical pose: axes of the first-order ellipsoid, "
                 f"longest along x). Outlined: family-wise corrected p ≤ {DEFAULT_ALPHA:g} "
-                f"({n_sig} of {len(stat)} vertices).", dpi))
+                f"({n_sig} of {len(stat)} vertices).", dpi, f"vertex_{stat_name}_{label}"))
         disp = [(k[len("mean_displacement_mm"):].strip("[]") or k, a.astype(float))
                 for k, (a, _) in arrays.items() if k.startswith("mean_displacement_mm")]
         rows = []
@@ -600,7 +630,8 @@ def _vertex_maps(comp: CompareResults | None, dpi: int) -> str:
                                                 f"displacement from the overall mean"),
                 f"{label}: each group's mean surface (rows), coloured by the group's mean "
                 f"displacement along the outward normal of the overall mean surface (mm; "
-                f"positive = outward). Outlined: p_fwer ≤ {DEFAULT_ALPHA:g}.", dpi))
+                f"positive = outward). Outlined: p_fwer ≤ {DEFAULT_ALPHA:g}.", dpi,
+                f"group_means_{label}"))
     return "".join(out)
 
 
@@ -609,7 +640,7 @@ def _safe_name(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9._+-]", "-", str(text))
 
 
-def _modes_section(comp: CompareResults | None, dpi: int) -> str:
+def _modes_section(comp: CompareResults | None, dpi: _Output) -> str:
     from shapedesc.figures.modes import ModeSurfaces, plot_shape_modes
 
     if comp is None:
@@ -646,7 +677,7 @@ def _modes_section(comp: CompareResults | None, dpi: int) -> str:
             f"{structure}: mean ± {PCA_MODE_SD:g} SD along the first {len(minus)} shape modes "
             "(pca/*.surf.gii, canonical pose), coloured by displacement from the mean along "
             "its normal (mm); row labels give the variance explained "
-            "(pca/variance_explained.tsv).", dpi))
+            "(pca/variance_explained.tsv).", dpi, f"shape_modes_{structure}"))
     return "".join(out)
 
 
@@ -678,7 +709,8 @@ def _parameters(desc: DescribeResults, comp: CompareResults | None) -> str:
 
 def build_report(outdir: str | Path, statsdir: str | Path | None = None, *,
                  input_root: str | Path | None = None, dpi: int = REPORT_DPI,
-                 max_thumbnails: int = MAX_THUMBNAILS) -> str:
+                 max_thumbnails: int = MAX_THUMBNAILS, figures_dir: str | Path | None = None,
+                 overwrite_figures: bool = False) -> str:
     """The report as one HTML string.
 
     Parameters
@@ -695,11 +727,22 @@ def build_report(outdir: str | Path, statsdir: str | Path | None = None, *,
         Resolution of the embedded images.
     max_thumbnails : int
         Most QC thumbnails per structure (worst fit first).
+    figures_dir : path-like, optional
+        Also write every figure there for papers: PNG at
+        :data:`shapedesc.defaults.FIGURE_DPI`, SVG and PDF.
+    overwrite_figures : bool
+        Replace existing files in ``figures_dir``.
 
     Returns
     -------
     str
     """
+    out = _Output(int(dpi), None if figures_dir is None else Path(figures_dir),
+                  bool(overwrite_figures))
+    if out.figures_dir is not None and not overwrite_figures and out.figures_dir.is_dir() \
+            and any(out.figures_dir.iterdir()):
+        raise FileExistsError(f"{out.figures_dir}: holds files already; choose an empty "
+                              "folder for the figures or pass --force")
     desc = load_describe(outdir)
     comp = load_compare(statsdir) if statsdir is not None else None
     roots = [Path(input_root)] if input_root is not None else []
@@ -709,11 +752,11 @@ def build_report(outdir: str | Path, statsdir: str | Path | None = None, *,
                     if p.is_dir() and p != desc.outdir and not p.name.startswith("."))
     sections = [
         ("summary", "Study summary", _summary(desc, comp)),
-        ("qc", "Quality control", _qc_section(desc, roots, dpi, max_thumbnails)),
-        ("spectra", "Shape spectra", _spectra_section(desc, dpi)),
-        ("tests", "Group tests", _stats_section(comp, dpi)),
-        ("maps", "Surface maps", _vertex_maps(comp, dpi)),
-        ("modes", "Shape modes", _modes_section(comp, dpi)),
+        ("qc", "Quality control", _qc_section(desc, roots, out, max_thumbnails)),
+        ("spectra", "Shape spectra", _spectra_section(desc, out)),
+        ("tests", "Group tests", _stats_section(comp, out)),
+        ("maps", "Surface maps", _vertex_maps(comp, out)),
+        ("modes", "Shape modes", _modes_section(comp, out)),
         ("parameters", "Parameters and versions", _parameters(desc, comp)),
     ]
     title = f"shapedesc report: {desc.outdir.name}"
@@ -748,7 +791,8 @@ def write_report(outdir: str | Path, statsdir: str | Path | None = None,
     force : bool
         Replace an existing file.
     **kwargs
-        Passed to :func:`build_report` (``input_root``, ``dpi``, ``max_thumbnails``).
+        Passed to :func:`build_report` (``input_root``, ``dpi``, ``max_thumbnails``,
+        ``figures_dir``, ``overwrite_figures``).
 
     Returns
     -------
@@ -765,6 +809,7 @@ def write_report(outdir: str | Path, statsdir: str | Path | None = None,
     path = Path(path)
     if path.exists() and not force:
         raise FileExistsError(f"{path}: exists already; choose another name or pass --force")
+    kwargs.setdefault("overwrite_figures", force)
     text = build_report(outdir, statsdir, **kwargs)
     write_text_atomic(path, text)
     return path

@@ -530,10 +530,19 @@ def test_report_command_in_process(study, tmp_path, capsys):
     assert "Group tests" in text and text.rstrip().endswith("</html>")
     assert main(args) == 1  # exists: refused without --force
     assert "--force" in capsys.readouterr().err
-    # without STATSDIR: describe results only, and the page says how to add tests
+    # without STATSDIR: describe results only, and the page says how to add tests;
+    # --figures also writes each figure as PNG (300 dpi), SVG and PDF
+    figs = tmp_path / "figs"
     assert main(["-q", "report", str(outdir), "-o", str(out), "--thumbnails", "1",
-                 "--dpi", "40", "--force"]) == 0
+                 "--dpi", "40", "--force", "--figures", str(figs)]) == 0
     assert "No STATSDIR given" in out.read_text(encoding="utf-8")
+    names = sorted(p.name for p in figs.iterdir())
+    assert "spectra.png" in names and "spectra.svg" in names and "spectra.pdf" in names
+    assert "qc_gallery_caudate_R.png" in names
+    with Image.open(figs / "spectra.png") as im:
+        assert im.info["dpi"] == pytest.approx((300, 300), abs=0.01)  # Pillow reads pHYs
+    assert main(["-q", "report", str(outdir), "-o", str(tmp_path / "r2.html"),
+                 "--figures", str(figs)]) == 1  # figures folder not empty: refused
     assert main(["-q", "report", str(outdir), str(statsdir), "--stats", str(tmp_path),
                  "-o", str(out), "--force"]) == 1  # two different STATSDIRs
     assert main(["-q", "report", str(outdir), "-o", str(tmp_path / "r.txt")]) == 1
