@@ -111,7 +111,7 @@ def repair_mesh(surface: Surface, *, keep_largest_component: bool = False,
         f = f[~repeated]
         steps.append(f"removed {int(repeated.sum())} degenerate faces with a repeated vertex")
     if len(f):
-        _, first = np.unique(np.sort(f, axis=1), axis=0, return_index=True)
+        first = _first_of_each_face(f, len(v))
         if len(first) < len(f):
             steps.append(f"removed {len(f) - len(first)} duplicate faces")
             f = f[np.sort(first)]
@@ -172,6 +172,18 @@ def repair_mesh(surface: Surface, *, keep_largest_component: bool = False,
     return out
 
 
+def _first_of_each_face(f: np.ndarray, n_vertices: int) -> np.ndarray:
+    """Index of the first occurrence of each distinct face (vertex set), ascending order."""
+    s = np.sort(f, axis=1)
+    n = max(int(n_vertices), 1)
+    if n ** 3 < 2**62:
+        key = (s[:, 0] * np.int64(n) + s[:, 1]) * np.int64(n) + s[:, 2]
+        _, first = np.unique(key, return_index=True)
+    else:
+        _, first = np.unique(s, axis=0, return_index=True)
+    return first
+
+
 def _orient_consistently(f: np.ndarray, n_vertices: int) -> tuple[np.ndarray, int]:
     """Flip faces so that every two-face edge is traversed in opposite directions.
 
@@ -220,7 +232,8 @@ def _orient_outward(v: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, int]:
     """Flip every component whose signed enclosed volume is negative."""
     n_comp, label = _vertex_components(_topology(f, len(v)), len(v))
     face_comp = label[f[:, 0]]
-    c = v[np.unique(f)].mean(axis=0)
+    used = np.bincount(f.reshape(-1), minlength=len(v)) > 0
+    c = v[used].mean(axis=0)
     a, b, d = v[f[:, 0]] - c, v[f[:, 1]] - c, v[f[:, 2]] - c
     tet = np.einsum("ij,ij->i", a, np.cross(b, d)) / 6.0
     vol = np.bincount(face_comp, weights=tet, minlength=n_comp)

@@ -316,19 +316,23 @@ def _duplicate_groups(vertices: np.ndarray, tol: float) -> np.ndarray:
     tied[:-1] |= eq
     if not tied.any():
         return rep
-    cand = ox[tied]
-    qc = q[cand]
-    order = np.lexsort((qc[:, 2], qc[:, 1], qc[:, 0]))
-    qs = qc[order]
-    new = np.ones(len(qs), dtype=bool)
-    new[1:] = np.any(qs[1:] != qs[:-1], axis=1)
-    if new.all():
-        return rep
-    group = np.cumsum(new) - 1
-    members = idx[cand[order]]
-    first = np.full(group[-1] + 1, np.iinfo(np.int64).max)
-    np.minimum.at(first, group, members)
-    rep[members] = first[group]
+    # runs of equal hash; within a run positions ascend, so its first is the smallest index
+    new = np.ones(len(ks), dtype=bool)
+    new[1:] = ~eq
+    run_first = ox[np.flatnonzero(new)][np.cumsum(new) - 1]
+    same = np.all(q[ox] == q[run_first], axis=1)
+    rep[idx[ox]] = idx[np.where(same, run_first, ox)]
+    if not same.all():  # hash collisions: resolve those runs exactly (rare)
+        bad_runs = np.unique((np.cumsum(new) - 1)[~same])
+        in_bad = np.isin(np.cumsum(new) - 1, bad_runs)
+        cand = ox[in_bad]
+        qc = q[cand]
+        order = np.lexsort((cand, qc[:, 2], qc[:, 1], qc[:, 0]))
+        qs = qc[order]
+        start = np.ones(len(qs), dtype=bool)
+        start[1:] = np.any(qs[1:] != qs[:-1], axis=1)
+        firsts = cand[order][np.flatnonzero(start)][np.cumsum(start) - 1]
+        rep[idx[cand[order]]] = idx[firsts]
     return rep
 
 
