@@ -283,6 +283,9 @@ def _draw(ax, v, f, view, s, cmap, norm, sig, sig_style, colour, silhouette_of,
     # faces sharing an edge tile the image with no cracks and no edge strokes are needed.
     pc = PolyCollection(polys, facecolors=rgba, edgecolors="none", linewidths=0.0,
                         antialiaseds=False)
+    # In SVG/PDF the thousands of faces go in as one embedded image at the save dpi;
+    # text, colour bar and outlines stay vector (small files that open fast).
+    pc.set_rasterized(True)
     ax.add_collection(pc)
 
     if silhouette_of is not None:
