@@ -159,8 +159,10 @@ def test_scale_normalisation_and_pose_outputs(tmp_path):
 
 def test_pose_warns_for_near_equal_axes():
     v, f = _ellipsoid_icosphere(3.0, 2.98, 1.0, level=3)
-    with pytest.warns(PoseWarning, match="within"):
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         d = describe_surface(Surface(v, f, source="almost-spheroid"), degree=4)
+    assert any(issubclass(w.category, PoseWarning) and "within" in str(w.message) for w in caught)
     assert d.pose.unstable and "unstable" in d.qc_row()["pose_warning"]
 
 
@@ -170,3 +172,23 @@ def test_bad_parameters_are_refused():
         describe_surface(Surface(v, f, source="x"), degree=0)
     with pytest.raises(ValueError, match="scale"):
         _describe(v, f, degree=3, scale="diameter")
+
+
+@pytest.mark.slow
+def test_real_anatomy_fit_residual_below_one_voxel(template_dir, full):
+    """Deep grey matter of the MNI ICBM152 2009a template (Fonov et al. 2011, open data).
+
+    Acceptance (issue 5): the fit RMS residual at the default degree is below one voxel
+    (1 mm in this template) for deep grey-matter structures.
+    """
+    from shapedesc import defaults
+    from shapedesc.mesh.template_anatomy import template_structure
+    from shapedesc.mesh.volume import mask_to_surface
+
+    names = ["thalamus_left", "putamen_left", "caudate_left"] if full else ["thalamus_left"]
+    for name in names:
+        ts = template_structure(name, data_dir=template_dir)
+        surf, _ = mask_to_surface(ts.mask, ts.affine, source=name, evidence=ts.evidence)
+        d = _describe(surf.vertices, surf.faces, degree=defaults.DEFAULT_DEGREE)
+        assert d.residual.rms_mm < 1.0, (name, d.residual)
+        assert d.qc_row()["n_flipped"] == 0
