@@ -57,7 +57,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from ..defaults import (SPHERE_AREA_MAX_ITER, SPHERE_AREA_REL_TOL, SPHERE_AREA_STALL_WINDOW,
+from ..defaults import (SPHERE_AREA_ABS_TOL, SPHERE_AREA_MAX_ITER, SPHERE_AREA_REL_TOL, SPHERE_AREA_STALL_WINDOW,
                         SPHERE_LBFGS_MEMORY, SPHERE_PRECOND_MASS)
 from ..errors import ConvergenceError
 from .laplacian import triangle_cotangents
@@ -210,7 +210,8 @@ def _retract(x: np.ndarray, d: np.ndarray, t: float) -> np.ndarray:
 
 
 def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE_AREA_MAX_ITER,
-                 rel_tol: float = SPHERE_AREA_REL_TOL, window: int = SPHERE_AREA_STALL_WINDOW,
+                 rel_tol: float = SPHERE_AREA_REL_TOL, abs_tol: float = SPHERE_AREA_ABS_TOL,
+                 window: int = SPHERE_AREA_STALL_WINDOW,
                  memory: int = SPHERE_LBFGS_MEMORY, precondition: bool = True,
                  lbfgs: bool = True, raise_on_budget: bool = True) -> AreaResult:
     """Minimise the area/shear energy from the bijective start ``x0`` (V, 3).
@@ -220,8 +221,8 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
     problem : AreaProblem
     x0 : ndarray, shape (V, 3)
         Unit vectors with every face positively oriented.
-    max_iter, rel_tol, window :
-        Stop when ``E[k − window] − E[k] <= rel_tol · E[k]``; if that has not happened
+    max_iter, rel_tol, abs_tol, window :
+        Stop when ``E[k − window] − E[k] <= rel_tol · E[k] + abs_tol``; if that has not happened
         after ``max_iter`` iterations raise :class:`ConvergenceError` (or return, with
         ``raise_on_budget=False``, as the benchmark's fixed-budget baseline does).
     memory : int
@@ -304,7 +305,7 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
         x, e, g = x_new, e_new, g_new
         if _DEBUG: print('it', it, 't', t, 'e', e)
         energies.append(e)
-        if len(energies) > window and energies[-1 - window] - e <= rel_tol * max(e, 1e-12):
+        if len(energies) > window and energies[-1 - window] - e <= rel_tol * e + abs_tol:
             converged = True
             break
     if not accepted and it > 0:
