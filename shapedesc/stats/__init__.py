@@ -8,7 +8,8 @@ FWER · ``multiple`` Benjamini–Hochberg FDR · ``effect`` Hedges' g with boots
 intervals · ``harmonise`` ComBat across sites · ``multivariate`` Hotelling's T² /
 Pillai's trace · ``vertexwise`` normal displacements and per-vertex tests ·
 ``shapespace`` PCA of coefficients and cross-validated separability · ``compare`` the
-study-level comparison that ``shapedesc compare`` runs.
+per-structure comparison of a spectra table · ``study`` the ``shapedesc compare`` run
+(OUTDIR in, STATSDIR out).
 
 Research use only: group statistics, not a diagnostic device.
 """
