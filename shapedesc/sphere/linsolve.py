@@ -9,12 +9,17 @@ matrices here (pinned Laplacians, the Beltrami-weighted Laplacian, the precondit
 * factorise **once** in real arithmetic and solve all coordinates together
   (a ``(V, 2)`` or ``(V, 3)`` right-hand side). Writing the two plane coordinates as one
   complex vector would double the work per entry for the same sparsity (complex LU);
-  the benchmark measures the difference;
-* order the columns with **COLAMD**. SuperLU's ``MMD_AT_PLUS_A`` is the textbook choice
-  for symmetric matrices, but combined with SuperLU's partial pivoting it produced far
-  more fill on these mesh matrices in our measurement (see ``benchmarks/sphere_map.py``);
+  the benchmark measures the difference (1.5x at 20k vertices);
+* order the columns with the ordering in ``defaults.SPHERE_LU_ORDERING``. We measured
+  both on these matrices (``benchmarks/sphere_map.py``, reduced cotangent Laplacian of a
+  20,252-vertex mesh): ``MMD_AT_PLUS_A`` (minimum degree on AᵀA + A, the natural choice
+  for a symmetric matrix) gave 1.85 M factor entries and 0.26 s, COLAMD 3.35 M and
+  0.40 s; the "MMD_AT_PLUS_A is a trap" report we were given did not reproduce here with
+  a symmetric, diagonally dominant matrix (it may hold for the row-replaced,
+  unsymmetric pinned form ``L`` with identity rows, which we never build: pinned
+  vertices are eliminated, keeping ``L_ff`` symmetric);
 * set ``diag_pivot_thresh`` = 0 (no row interchanges: the matrices are diagonally
-  dominant, so the diagonal pivots are safe) with symmetric mode off.
+  dominant, so the diagonal pivots are safe and the symmetric ordering is kept).
 
 References
 ----------
@@ -46,7 +51,7 @@ def factorise(matrix: sp.spmatrix, *, what: str, ordering: str = SPHERE_LU_ORDER
     what : str
         Surface and stage for error messages.
     ordering : str
-        SuperLU ``permc_spec`` (``"COLAMD"`` default; ``"MMD_AT_PLUS_A"`` for comparison).
+        SuperLU ``permc_spec`` (default ``defaults.SPHERE_LU_ORDERING``).
 
     Returns
     -------
