@@ -69,3 +69,30 @@ def test_table_problems_are_named():
         compare_spectra(t, group="group", structures=["caudate"], n_permutations=10)
     with pytest.raises(StatsInputError, match="site column 'scanner' not found"):
         compare_spectra(t, group="group", site="scanner", n_permutations=10)
+
+
+def test_pointwise_stacked_synthesis_equals_per_subject_reconstruction():
+    pytest.importorskip("shapedesc.reconstruct")
+    from shapedesc.reconstruct import reconstruct_values
+    from shapedesc.stats.compare import pointwise_comparison
+    from shapedesc.stats.design import build_design
+    from shapedesc.stats.vertexwise import normal_displacement, vertex_normals
+
+    rng = np.random.default_rng(8)
+    n, lmax = 8, 3
+    vals = []
+    for _ in range(n):
+        v = rng.normal(0, 0.1, size=((lmax + 1) ** 2, 3))
+        v[3, 0] += 20.0
+        v[1, 1] += 15.0
+        v[2, 2] += 10.0
+        vals.append(v)
+    t = pd.DataFrame({"subject": [f"s{i}" for i in range(n)], "group": ["A", "B"] * 4})
+    d = build_design(t, group="group")
+    vt = pointwise_comparison(vals, d, smoothing=0.01, level=2, n_permutations=20, rng=0)
+    # reference: one reconstruct_values call per subject (the lead's documented use)
+    each = np.stack([reconstruct_values(v, lmax, smoothing=0.01, level=2)[0] for v in vals])
+    mean = each.mean(0)
+    ref = normal_displacement(each, mean, vertex_normals(mean, vt.faces))
+    np.testing.assert_allclose(vt.mean_vertices, mean, atol=1e-12)  # same sums, reordered
+    np.testing.assert_allclose(vt.displacement, ref, atol=1e-12)

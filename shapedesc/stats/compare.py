@@ -432,13 +432,18 @@ def pointwise_comparison(
         raise StatsInputError(
             f"{len(coefficient_values)} coefficient sets for {design.n_subjects} subjects")
     kw = {} if level is None else {"level": int(level)}
-    verts = []
-    faces = None
-    for v in coefficient_values:
-        v = np.asarray(v, dtype=float)
-        lmax = int(round(np.sqrt(v.shape[0]))) - 1
-        x, faces = reconstruct_values(v, lmax, degree=degree, smoothing=smoothing, **kw)
-        verts.append(x)
-    return vertex_tests(np.stack(verts), faces, design.matrix, design.contrast,
+    arrays = [np.asarray(v, dtype=float) for v in coefficient_values]
+    sizes = {a.shape for a in arrays}
+    if len(sizes) != 1 or arrays[0].ndim != 2 or arrays[0].shape[1] != 3:
+        raise StatsInputError(
+            f"coefficient arrays must all have the same shape ((L+1)^2, 3); found {sorted(sizes)}."
+            " Rerun describe with one --degree for the whole study")
+    lmax = int(round(np.sqrt(arrays[0].shape[0]))) - 1
+    # Synthesis is linear in the coefficients: all subjects' x, y, z as columns of one
+    # ((L+1)^2, 3 n) array cost one basis evaluation instead of n.
+    stacked = np.concatenate(arrays, axis=1)
+    x, faces = reconstruct_values(stacked, lmax, degree=degree, smoothing=smoothing, **kw)
+    verts = x.reshape(x.shape[0], len(arrays), 3).transpose(1, 0, 2)
+    return vertex_tests(verts, faces, design.matrix, design.contrast,
                         design.group_codes, design.levels, n_permutations=n_permutations,
                         rng=rng, blocks=blocks)
