@@ -546,3 +546,13 @@ def test_report_command_in_process(study, tmp_path, capsys):
     assert main(["-q", "report", str(outdir), str(statsdir), "--stats", str(tmp_path),
                  "-o", str(out), "--force"]) == 1  # two different STATSDIRs
     assert main(["-q", "report", str(outdir), "-o", str(tmp_path / "r.txt")]) == 1
+
+
+def test_report_is_deterministic(study):
+    # Same inputs -> the same bytes (fixed PNG metadata, sorted tables, no timestamps).
+    from shapedesc.report import build_report
+
+    root, outdir, _ = study
+    a = build_report(outdir, None, input_root=root, dpi=30, max_thumbnails=1)
+    b = build_report(outdir, None, input_root=root, dpi=30, max_thumbnails=1)
+    assert a == b
