@@ -3,9 +3,9 @@
 Per label: keep the largest connected component, fill enclosed cavities, make the
 voxel set a topological ball (:func:`shapedesc.mesh.topology.correct_topology`), run
 marching cubes at the iso-level that reproduces the digital topology of the chosen
-connectivity pair, move the vertices to the voxel-face midpoints, map them through the
-image affine, smooth the mesh (Taubin), optionally coarsen it to a target vertex count,
-and verify the result.
+connectivity pair, move the vertices to the voxel-face midpoints, optionally decimate to
+a target vertex count (edge collapse under the link condition), smooth the mesh (Taubin)
+and give it its volume back, map it through the image affine, and verify the result.
 
 Marching cubes and digital topology
 -----------------------------------
@@ -48,6 +48,7 @@ from scipy import sparse
 from shapedesc import defaults
 from shapedesc.errors import LabelError, MeshTopologyError, VolumeFormatError
 from shapedesc.mesh import measures
+from shapedesc.mesh.decimate import decimate
 from shapedesc.mesh.topology import _structures, correct_topology, signed_distance_evidence
 from shapedesc.surface import Surface
 
@@ -141,7 +142,7 @@ def label_to_surface(volume, label: int, *,
     smoothing_iterations : int
         Taubin (lambda, mu) iterations after marching cubes; 0 = none.
     target_vertices : int, optional
-        Coarsen the surface to about this many vertices (see :func:`mask_to_surface`).
+        Decimate the surface to this many vertices (see :func:`mask_to_surface`).
     evidence : ndarray, shape (I, J, K), float, optional
         How object-like each voxel is (higher = more; e.g. the label's probability map),
         ordering which voxels the topology fix adds or removes first.  Default: signed
@@ -216,11 +217,10 @@ def mask_to_surface(mask: np.ndarray, affine: np.ndarray, *, source: str = "<mem
     smoothing_iterations : int
         Taubin (lambda, mu) iterations (``defaults.TAUBIN_LAMBDA``, ``TAUBIN_MU``).
     target_vertices : int, optional
-        Coarsen to about this many vertices (within ~15 %): the corrected mask is
-        resampled (linear interpolation of its 0/1 values) onto a grid coarser by a
-        factor s ≈ sqrt(current / target) per axis, its topology corrected again at the
-        coarse scale (evidence = the resampled values), and meshed there.  Ignored when
-        the full-resolution mesh has no more vertices than the target.
+        Decimate to this many vertices by topology-preserving edge collapse
+        (:func:`shapedesc.mesh.decimate.decimate`) before smoothing; the enclosed volume
+        is restored afterwards.  Ignored when the mesh has no more vertices; the count
+        may stay above the target if no edge can collapse safely (said in the history).
     connectivity : {26, 6}
     label : int, optional
         Stored in the report.
@@ -301,12 +301,17 @@ def mask_to_surface(mask: np.ndarray, affine: np.ndarray, *, source: str = "<mem
     verts, faces = marching_cubes_mask(final, connectivity=connectivity)
     history.append(f"marching cubes (lewiner, level {defaults.MARCHING_CUBES_LEVEL[connectivity]}"
                    f" on 0/1 voxels, vertices at voxel-face midpoints): {len(verts)} vertices")
+    before = measures.enclosed_volume(verts, faces)
     if target_vertices is not None and len(verts) > target_vertices:
-        verts, faces, grid_affine, note = _coarsen(final, grid_affine, len(verts),
-                                                   target_vertices, connectivity, source)
-        history.append(note)
+        n0 = len(verts)
+        verts, faces = decimate(verts, faces, target_vertices)
+        history.append(f"decimated by edge collapse (link condition, no folds): {n0} -> "
+                       f"{len(verts)} vertices (target {target_vertices})")
+        if not smoothing_iterations:
+            verts, offset = restore_volume(verts, faces, before,
+                                           max_offset=defaults.SMOOTHING_MAX_OFFSET_VOXELS)
+            history.append(f"volume restored by a normal offset of {offset:+.3g} voxel")
     if smoothing_iterations:
-        before = measures.enclosed_volume(verts, faces)
         verts = taubin_smooth(verts, faces, iterations=smoothing_iterations)
         verts, offset = restore_volume(verts, faces, before,
                                        max_offset=defaults.SMOOTHING_MAX_OFFSET_VOXELS)
@@ -542,44 +547,3 @@ def _translation(offset) -> np.ndarray:
     t = np.eye(4)
     t[:3, 3] = offset
     return t
-
-
-def _coarsen(mask, grid_affine, n_now, target, connectivity, source):
-    """Mesh the mask on a coarser grid so the surface has about ``target`` vertices."""
-    s = max(1.0, float(np.sqrt(n_now / target)))
-    best = None
-    for _ in range(3):
-        zoom = 1.0 / s
-        coarse = ndi.zoom(mask.astype(np.float32), zoom, order=1, grid_mode=False)
-        coarse = np.pad(coarse, 2)
-        obj = coarse > 0.5
-        if not obj.any():
-            break
-        so, _ = _structures(connectivity)
-        lab, n = ndi.label(obj, structure=so)
-        if n > 1:
-            sizes = np.bincount(lab.ravel())
-            sizes[0] = 0
-            obj = lab == int(np.argmax(sizes))
-        fix = correct_topology(obj, evidence=coarse.astype(np.float64), connectivity=connectivity)
-        v, f = marching_cubes_mask(fix.mask, connectivity=connectivity)
-        # coarse index c (after the pad of 2) -> fine index: (c - 2) * step
-        step = (np.array(mask.shape) - 1) / (np.array(coarse.shape) - 4 - 1)
-        scale = np.eye(4)
-        scale[:3, :3] = np.diag(step)
-        aff = grid_affine @ scale @ _translation([-2.0, -2.0, -2.0])
-        err = abs(len(v) - target) / target
-        if best is None or err < best[0]:
-            best = (err, v, f, aff, s, fix)
-        if err <= 0.15:
-            break
-        s *= float(np.sqrt(len(v) / target))
-        s = max(s, 1.0)
-    if best is None:
-        raise MeshTopologyError(f"{source}: cannot coarsen to {target} vertices: the "
-                                "structure vanishes on the coarse grid; ask for more vertices")
-    err, v, f, aff, s, fix = best
-    note = (f"coarsened to {len(v)} vertices (target {target}): mask resampled by 1/{s:.2f} "
-            f"per axis, topology fixed again there (+{fix.voxels_added} / "
-            f"-{fix.voxels_removed} coarse voxels)")
-    return v, f, aff, note
