@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import filecmp
 import logging
+import os
 import shutil
 import sys
 from pathlib import Path
@@ -22,6 +23,9 @@ from pathlib import Path
 HELP = "run the whole job on the bundled, invented example study"
 
 log = logging.getLogger("shapedesc.cli.demo")
+
+#: Worker processes the demo uses by default: the CPUs, at most 4.
+DEFAULT_JOBS = max(1, min(4, os.cpu_count() or 1))
 
 #: Options of the comparison step: the study's group column and covariates; fewer
 #: permutations than the default keep the demo to a minute or two.
@@ -36,8 +40,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                               formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("-o", "--outdir", default="shapedesc-demo", metavar="DIR",
                    help="output folder (default shapedesc-demo)")
-    p.add_argument("--jobs", type=int, default=1, metavar="N",
-                   help="local worker processes for describe (default 1)")
+    p.add_argument("--jobs", type=int, default=DEFAULT_JOBS, metavar="N",
+                   help=f"local worker processes for describe (default {DEFAULT_JOBS}: the "
+                        f"CPUs, at most 4; results do not depend on it)")
     p.add_argument("--force", action="store_true",
                    help="replace a DIR/study that differs from the bundled one, and results "
                         "made with other parameters")
@@ -117,7 +122,7 @@ def run(args: argparse.Namespace) -> int:
     finally:
         reporter.close()
     print(f"describe: {result.n_items - result.n_failed} of {result.n_items} structures "
-          f"described into {result.outdir}")
+          f"described ({result.n_cached} from the cache) into {result.outdir}")
     status = result.exit_status
     # DIR/compare and DIR/report.html belong to the demo: each run makes them afresh.
     if "compare" in COMMANDS:

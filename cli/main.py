@@ -19,7 +19,7 @@ import sys
 from shapedesc import CAUTION, __version__
 
 #: Command modules, in the order ``--help`` lists them.
-COMMANDS: tuple[str, ...] = ("check", "reconstruct", "compare", "report")
+COMMANDS: tuple[str, ...] = ("describe", "check", "reconstruct", "compare", "report", "demo")
 
 
 def _get_parser() -> argparse.ArgumentParser:
