@@ -156,6 +156,15 @@ def test_rerun_computes_nothing_and_writes_identical_bytes(tmp_path, chain):
     again = run_study(manifest, out, parameters=PARAMS)
     assert (again.n_computed, again.n_cached) == (0, again.n_items)
     assert _tables(out) == first
+    # a subject dropped from the manifest leaves the tables and coefficients/ with it
+    path = tmp_path / "study" / "manifest.tsv"
+    path.write_text("".join(ln for ln in path.read_text().splitlines(keepends=True)
+                            if not ln.startswith("s01\t")))
+    fewer = run_study(read_manifest(path), out, parameters=PARAMS)
+    assert (fewer.n_computed, fewer.n_items) == (0, again.n_items - 1)
+    assert not (out / "coefficients" / "s01_blob.npz").exists()
+    assert (out / "coefficients" / "s00_blob.npz").read_bytes() == first["coefficients/s00_blob.npz"]
+    assert "s01" not in (out / "spectra.tsv").read_text()
 
 
 def test_resume_computes_only_missing_items(tmp_path, chain):

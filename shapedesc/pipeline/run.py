@@ -261,6 +261,19 @@ def _remove_partial_files(outdir: Path) -> None:
                     p.unlink()
 
 
+def _remove_stale_coefficients(outdir: Path, expected: set[str]) -> None:
+    """Delete coefficient files of items that are not in this run's results (a subject
+    dropped from the manifest, one that now fails, or results replaced with --force):
+    ``coefficients/`` then matches the tables.  Nothing else is touched."""
+    folder = outdir / COEFFICIENTS
+    if not folder.is_dir():
+        return
+    for p in sorted(folder.iterdir()):
+        if p.is_file() and not p.name.startswith(".") and p.name not in expected:
+            logger.info("removing %s: not among this run's results", p)
+            p.unlink()
+
+
 def run_study(manifest: Manifest, outdir: str | Path, *,
               parameters: DescribeParameters | None = None, jobs: int = 1,
               scheduler: str | None = None, force: bool = False,
@@ -313,6 +326,7 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
     failures: dict[str, dict] = {}
     tasks: list[dict] = []
     names: dict[str, str] = {}
+    expected_files: set[str] = set()
     for it in manifest.items:
         h = hashes[it.input]
         if not isinstance(h, str):
@@ -330,7 +344,9 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
             if entry["status"] == "ok":
                 # Rewrite the coefficient file if a crash came between the cache write
                 # and the file write, or coefficients/ was deleted (identical: skipped).
-                write_coefficient_files(outdir, it.name, ResultCache.files(entry))
+                files = ResultCache.files(entry)
+                write_coefficient_files(outdir, it.name, files)
+                expected_files.update(f"{it.name}{sfx}" for sfx in files)
                 entries[key] = {"status": "ok", "rows": entry["rows"]}
             else:
                 failures[key] = entry
@@ -354,6 +370,7 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
             entry = {"status": "ok", "rows": result["rows"], "files": result["files"]}
             cache.put(key, entry)
             write_coefficient_files(outdir, names[key], result["files"])
+            expected_files.update(f"{names[key]}{sfx}" for sfx in result["files"])
             entries[key] = {"status": "ok", "rows": result["rows"]}
         else:
             record = {"status": "failed", "stage": result["stage"], "error": result["error"]}
@@ -365,6 +382,7 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
         if progress is not None:
             progress(ProgressEvent(done, total, len(failures), names[key], result["status"]))
 
+    _remove_stale_coefficients(outdir, expected_files)
     tables = build_tables(keyed, entries, failures, manifest.extra_columns)
     for name, (columns, rows) in tables.items():
         write_tsv(outdir / f"{name}.tsv", columns, rows)
