@@ -232,8 +232,8 @@ def test_thin_ring_is_cut():
     assert T.topology_counts(ring) == (1, 0, 1)
     fix = T.correct_topology(ring)
     assert T.topology_counts(fix.mask) == (1, 0, 0)
-    # cutting a 3-voxel-thick, ~2-voxel-wide tube takes about one cross-section
-    # (<= 12 voxels: 3 x 3 plus a diagonal step, from the tube's size); filling its
+    # cutting a 3-voxel-thick, ~3-voxel-wide tube takes about one cross-section
+    # (<= 12 voxels: 3 x 3 plus a diagonal step; measured 9); filling its
     # 16-voxel-wide hole would take ~200
     assert fix.voxels_added == 0 and 0 < fix.voxels_removed <= 12
     assert fix.clusters_cut == 1 and fix.clusters_filled == 0
@@ -244,8 +244,9 @@ def test_thick_ring_with_small_hole_is_filled():
     assert T.topology_counts(ring) == (1, 0, 1)
     fix = T.correct_topology(ring)
     assert T.topology_counts(fix.mask) == (1, 0, 0)
-    # the hole has a 3x3-voxel cross-section: one membrane of <= 9 voxels closes it,
-    # while a cut through the 10-voxel-wide ring would take ~100
+    # the hole's cross-section is a 5-voxel plus inside a 3x3 box (inner radius 1.2):
+    # one membrane of <= 9 voxels closes it (measured 5), while a cut through the
+    # 10-voxel-wide, 11-voxel-thick ring would take ~100
     assert fix.voxels_removed == 0 and 0 < fix.voxels_added <= 9
     assert fix.clusters_filled == 1
 
