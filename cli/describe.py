@@ -2,7 +2,7 @@
 
 INPUT is one of
 
-* surface files and/or label volumes (``.nii``, ``.nii.gz``, ``.mgz``); subject and
+* surface files and/or label volumes (NIfTI ``.nii``, ``.nii.gz``); subject and
   structure come from each file name (``sub-01_hippocampus.surf.gii`` -> ``sub-01`` /
   ``hippocampus``; the full rule is in
   :func:`shapedesc.pipeline.manifest.names_from_filename`) unless ``--subject`` /
