@@ -40,8 +40,6 @@ MAX_THUMBNAILS = 48
 #: Most rows printed per table (the TSV files hold all of them).
 MAX_TABLE_ROWS = 2000
 
-_SURFACE_SUFFIXES = (".gii", ".ply", ".obj", ".stl", ".off", ".vtk", ".pial", ".white")
-
 
 # ============================================================================ inputs
 
@@ -386,12 +384,12 @@ def _thumbnails(desc: DescribeResults, structure: str, roots: list[Path], max_n:
             notes.append(f"{subject} / {structure}: no reconstruction ({exc})")
             continue
         surface, note = None, ""
-        src = _resolve_input(str(row.get("input", "")), roots) if row.get("input") else None
-        if src is None:
-            note = "input not found: outline only"
-        elif not src.name.lower().endswith(_SURFACE_SUFFIXES + (".gz",)) or \
-                src.name.lower().endswith((".nii", ".nii.gz", ".mgz")):
-            note = "input is a volume: reconstruction only"
+        text = str(row.get("input", "") or "")
+        src = _resolve_input(text, roots) if text else None
+        if re.search(r"\.(nii(\.gz)?|mgz|mgh)(#|$)", text.lower()):
+            note = "input is a label volume: reconstruction only"
+        elif src is None:
+            note = "input not found: reconstruction only"
         else:
             try:
                 from shapedesc.io.surfaces import read_surface

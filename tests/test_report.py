@@ -556,3 +556,22 @@ def test_report_is_deterministic(study):
     a = build_report(outdir, None, input_root=root, dpi=30, max_thumbnails=1)
     b = build_report(outdir, None, input_root=root, dpi=30, max_thumbnails=1)
     assert a == b
+
+
+def test_thumbnails_say_why_the_input_is_not_overlaid(study):
+    from dataclasses import replace
+
+    from shapedesc.report import _thumbnails, load_describe
+
+    root, outdir, _ = study
+    desc = load_describe(outdir)
+    qc = desc.qc[desc.qc.structure == "caudate_R"].head(3).copy()
+    qc["input"] = ["inputs/sub-01_caudate_R.ply", "seg/sub-02.nii.gz#label=50",
+                   "gone/sub-03.ply"]
+    thumbs, notes, total = _thumbnails(replace(desc, qc=qc), "caudate_R", [root], 10, level=1)
+    by_subject = {t.subject: t for t in thumbs}
+    assert total == 3 and not notes
+    assert by_subject["sub-01"].input_surface is not None
+    assert "label volume" in by_subject["sub-02"].caption
+    assert by_subject["sub-02"].input_surface is None
+    assert "input not found" in by_subject["sub-03"].caption
