@@ -577,8 +577,13 @@ def _vertex_maps(comp: CompareResults | None, dpi: _Output) -> str:
     maps = [p for p in comp.vertex_files if p.parent == comp.statsdir
             and re.fullmatch(r"vertex_tests(_.+)?\.gii", p.name)]
     if not maps:
+        per = comp.info.get("structures")
+        why = ""
+        if isinstance(per, dict):
+            why = "; ".join(f"{k}: {v.get('pointwise')}" for k, v in sorted(per.items())
+                            if isinstance(v, dict) and v.get("pointwise"))
         return _note("No per-vertex maps (vertex_tests*.gii) in the STATSDIR"
-                     + (f": {comp.info['structures']}" if comp.info.get("structures") else ""))
+                     + (f" ({why})" if why else "") + ".")
     out = []
     for mp in maps:
         suffix = mp.name[len("vertex_tests"):-len(".gii")]
