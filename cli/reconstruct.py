@@ -62,7 +62,8 @@ def run(args: argparse.Namespace) -> int:
     if args.figure:
         from shapedesc.figures import render_surface_figure
 
-        render_surface_figure(vertices, faces, args.figure,
-                              title=f"{Path(args.coefficients).stem} (degree {deg})")
+        render_surface_figure(vertices, faces, args.figure, pose=args.pose,
+                              title=f"{Path(args.coefficients).stem} (degree {deg})",
+                              overwrite=args.force)
         log.info("wrote %s", args.figure)
     return 0

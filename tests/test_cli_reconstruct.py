@@ -72,3 +72,15 @@ def test_refuses_overwrite_and_bad_suffix(coefficient_file, tmp_path, capsys):
     bad.write_bytes(b"not a zip")
     assert main(["-q", "reconstruct", str(bad), "-o", str(tmp_path / "x.ply")]) == 1
     assert "not a shapedesc coefficient file" in capsys.readouterr().err
+
+
+def test_reconstruct_with_figure(coefficient_file, tmp_path):
+    from PIL import Image
+
+    out, fig = tmp_path / "r.ply", tmp_path / "r.png"
+    assert main(["-q", "reconstruct", str(coefficient_file), "-o", str(out), "--level", "3",
+                 "--figure", str(fig)]) == 0
+    with Image.open(fig) as im:
+        arr = np.asarray(im.convert("L"), dtype=float)
+    # The render is not blank: a shaded surface spans many grey levels.
+    assert arr.std() > 5 and len(np.unique(arr)) > 20
