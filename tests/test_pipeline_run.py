@@ -242,3 +242,20 @@ def test_progress_shows_a_bar_on_a_terminal_and_log_lines_otherwise(tmp_path, ch
     text = term.getvalue()
     # tqdm's bar: counts "5/5", a rate "item/s" and the elapsed<remaining times
     assert "3/3" in text and "item/s" in text and "<" in text
+
+
+def test_coefficient_snapping_hides_last_bit_noise_only():
+    from shapedesc.pipeline.work import _snap
+
+    rng = np.random.default_rng(0)
+    c = rng.normal(scale=10.0, size=(256, 3)) * np.logspace(0, -12, 256)[:, None]
+    s = _snap(c)
+    # grid 2**-40 of the largest power of two below max|c|: rounding moves each value
+    # by at most half a step (IEEE 754 scaling by powers of two is exact)
+    step = 2.0 ** (np.floor(np.log2(np.abs(c).max())) - 40)
+    assert np.abs(s - c).max() <= step / 2
+    assert np.array_equal(_snap(s), s)                      # idempotent
+    # noise of a few ulps of the largest value (what reduction order changes) vanishes
+    # for all but values that sit within the noise of a grid boundary
+    noisy = c + rng.choice([-1, 1], size=c.shape) * 4 * np.spacing(np.abs(c).max())
+    assert np.mean(_snap(noisy) == s) > 0.99
