@@ -35,6 +35,11 @@ SH_CHUNK_BYTES: int = 64 * 1024**2
 #: A fit keeps its basis blocks for the residual pass when all of them fit in this many
 #: bytes (else it rebuilds them chunk by chunk); 256 MiB (common practice).
 SH_FIT_CACHE_BYTES: int = 256 * 1024**2
+#: ``fit(method="auto")`` forms the normal matrix from point moments (ducc0) from this
+#: degree up, when there are more than twice as many points as nodes of the degree-2L
+#: Gauss-Legendre grid; below it the direct n·K² accumulation is faster (measured,
+#: benchmarks/harmonics_fit.py: crossover near degree 20 on one core).
+SH_FIT_MOMENTS_MIN_DEGREE: int = 20
 #: Normal equations whose Jacobi-scaled reciprocal condition number (LAPACK dpocon) is
 #: below this are solved by eigen-decomposition instead of Cholesky (dimensionless).
 #: Cholesky on normal equations loses ~cond·eps relative accuracy, so 1e-10 still leaves

@@ -84,6 +84,35 @@ def test_weighted_regularised_fit_matches_dense_lstsq():
     np.testing.assert_allclose(a.coefficients.values, b.coefficients.values, atol=1e-13)
 
 
+def test_moment_and_direct_normal_matrices_agree():
+    # Two exact routes to Σ w R Rᵀ: accumulation over points vs the degree-2L moments
+    # integrated on a Gauss-Legendre grid (pointsets module); also with points at the poles
+    # and uneven weights, and against numpy.linalg.lstsq on the dense weighted system.
+    rng = np.random.default_rng(12)
+    lmax, n = 9, 3000
+    p = _cap_heavy(n, 0.5, 50.0, rng)
+    p[:2] = [[0, 0, 1.0], [0, 0, -1.0]]
+    y = rng.normal(size=(n, 3))
+    w = rng.random(n) + 0.01
+    a = fit(p, y, lmax, weights=w, method="moments")
+    b = fit(p, y, lmax, weights=w, method="direct")
+    assert (a.method, b.method) == ("moments", "direct")
+    # 1e-12: the same normal equations summed in different orders (cond ~ 10).
+    np.testing.assert_allclose(a.coefficients.values, b.coefficients.values, atol=1e-12)
+    wt = w * 4 * np.pi / w.sum()
+    B = np.sqrt(wt)[:, None] * basis(lmax, p)
+    ref = np.linalg.lstsq(B, np.sqrt(wt)[:, None] * y, rcond=None)[0]
+    np.testing.assert_allclose(a.coefficients.values, ref, atol=1e-12)
+    np.testing.assert_allclose(a.residual_rms, b.residual_rms, rtol=1e-10)
+    # "auto": moments for many points at degree >= SH_FIT_MOMENTS_MIN_DEGREE, else direct
+    q = _unit(2 * 41 * 82 + 10, rng)
+    assert fit(q, q, 20).method == "moments"
+    assert fit(q[:3000], q[:3000], 20).method == "direct"   # few points against the grid
+    assert fit(p, y, lmax).method == "direct"               # low degree
+    with pytest.raises(ValueError, match="method"):
+        fit(p, y, lmax, method="qr")
+
+
 def test_heat_kernel_weights_applied_to_the_fit():
     # Chung et al. 2007 (doi:10.1109/TMI.2007.892519): weighted Fourier series coefficients
     # are the least-squares coefficients times exp(-l(l+1)σ).
@@ -109,10 +138,10 @@ def test_chunked_accumulation_does_not_change_the_result(monkeypatch):
     y = rng.normal(size=(5000, 3))
     w = rng.random(5000)
     w[::17] = 0.0  # zero-weight points still get a residual
-    ref = fit(p, y, lmax, weights=w)
+    ref = fit(p, y, lmax, weights=w, method="direct")
     monkeypatch.setattr(defaults, "SH_CHUNK_BYTES", 8 * 64 * 300)   # ~300-point chunks
     monkeypatch.setattr(defaults, "SH_FIT_CACHE_BYTES", 0)          # rebuild for residuals
-    got = fit(p, y, lmax, weights=w)
+    got = fit(p, y, lmax, weights=w, method="direct")
     # 1e-12: same sums in a different order.
     np.testing.assert_allclose(got.coefficients.values, ref.coefficients.values, atol=1e-12)
     np.testing.assert_allclose(got.residual_rms, ref.residual_rms, rtol=1e-12)

@@ -8,7 +8,9 @@ with w̃ the given weights rescaled to sum to 4π (so the data term approximates
 ∫ (y - f)² dΩ and only relative weights matter) and Λ_j = l(l+1) ("laplacian": the
 penalty is λ ∫|∇_S f|² dΩ, degree 0 is free) or Λ_j = 1 ("identity").  The normal
 equations (Σ w̃ R Rᵀ + λΛ) c = Σ w̃ R y are accumulated over chunks of points, so only one
-(K, chunk) block of the basis exists at a time; they are Jacobi-scaled and solved by
+(K, chunk) block of the basis exists at a time (for many points the matrix Σ w̃ R Rᵀ is
+formed instead, exactly, from the points' degree-2L moments on a Gauss–Legendre grid:
+:mod:`shapedesc.harmonics.pointsets`); they are Jacobi-scaled and solved by
 Cholesky, or by a truncated eigen-decomposition when the scaled matrix is
 ill-conditioned.  Optionally the solution is multiplied by Chung et al.'s heat-kernel
 weights exp(-l(l+1)σ) (weighted Fourier series, the heat-kernel smoothing of the fit).
@@ -43,10 +45,12 @@ from shapedesc.errors import IllConditionedFitWarning
 from ._checks import check_degree, check_points
 from .sh_basis import _angles, _real_rows
 from .coefficients import SHCoefficients, chunk_rows, heat_kernel_factors
+from .pointsets import _normal_matrix, _point_adjoint
 
 __all__ = ["SHFit", "fit"]
 
 PENALTIES = ("laplacian", "identity")
+METHODS = ("auto", "moments", "direct")
 
 
 @dataclass(frozen=True, eq=False)
@@ -68,6 +72,8 @@ class SHFit:
         rank deficient).
     solver : str
         "cholesky" or "eigen".
+    method : str
+        How the normal matrix was formed: "moments" or "direct" (see :func:`fit`).
     rank : int
         Numerical rank used ((lmax+1)**2 on the Cholesky path).
     n_points : int
@@ -81,6 +87,7 @@ class SHFit:
     residual_max: np.ndarray
     condition: float
     solver: str
+    method: str
     rank: int
     n_points: int
     tikhonov: float
@@ -89,7 +96,7 @@ class SHFit:
 
 
 def fit(points, values, lmax, *, weights=None, tikhonov: float = 0.0,
-        penalty: str = "laplacian", heat_bandwidth: float = 0.0) -> SHFit:
+        penalty: str = "laplacian", heat_bandwidth: float = 0.0, method: str = "auto") -> SHFit:
     """Least-squares real spherical-harmonic expansion of samples at unit vectors.
 
     Parameters
@@ -110,6 +117,14 @@ def fit(points, values, lmax, *, weights=None, tikhonov: float = 0.0,
         or Λ_j = 1.
     heat_bandwidth : float, keyword-only
         σ >= 0; the solution is multiplied by exp(-l(l+1)σ) (Chung et al. 2007).
+    method : {"auto", "moments", "direct"}, keyword-only
+        How the normal matrix Σ w R Rᵀ is formed (the result is the same to rounding):
+        "direct" accumulates it over chunks of points (cost n K²); "moments" computes
+        the degree-2·lmax moments of the weighted points exactly (ducc0.sht, cost ~n L²)
+        and integrates on a Gauss–Legendre grid (cost ~16 L² K², independent of n; see
+        :mod:`shapedesc.harmonics.pointsets`).  "auto" (default) picks "moments" when n
+        exceeds twice that grid's node count and lmax >=
+        ``defaults.SH_FIT_MOMENTS_MIN_DEGREE``.
 
     Returns
     -------
@@ -124,7 +139,8 @@ def fit(points, values, lmax, *, weights=None, tikhonov: float = 0.0,
     Notes
     -----
     Memory: one (K, chunk) basis block (``defaults.SH_CHUNK_BYTES``) plus a few K×K
-    matrices; 150,000 points at lmax 40 peak at ~0.2 GB (benchmarks/harmonics_fit.py).
+    matrices and O(n) work arrays; the whole process fitting 150,000 points at lmax 40
+    peaks at ~0.3 GB (benchmarks/harmonics_fit.py).
     """
     lmax = check_degree(lmax)
     p = check_points(points)
@@ -159,18 +175,24 @@ def fit(points, values, lmax, *, weights=None, tikhonov: float = 0.0,
     if penalty not in PENALTIES:
         raise ValueError(f"fit: penalty must be 'laplacian' or 'identity', got {penalty!r}")
     heat = heat_kernel_factors(lmax, heat_bandwidth)  # validates the bandwidth
-    return _fit(p, y, w, lmax, lam, penalty, float(heat_bandwidth), heat)
+    if method not in METHODS:
+        raise ValueError(f"fit: method must be 'auto', 'moments' or 'direct', got {method!r}")
+    if method == "auto":
+        many = n > 2 * (2 * lmax + 1) * (4 * lmax + 2)
+        method = "moments" if many and lmax >= defaults.SH_FIT_MOMENTS_MIN_DEGREE else "direct"
+    return _fit(p, y, w, lmax, lam, penalty, float(heat_bandwidth), heat, method)
 
 
-def _normal_equations(p, y, w, lmax):
-    """Upper triangle of Σ w R Rᵀ (K, K) and Σ w R y (K, k), accumulated over chunks.
+def _normal_equations(p, y, w, lmax, *, with_matrix: bool = True):
+    """Upper triangle of Σ w R Rᵀ (K, K) (None unless ``with_matrix``) and Σ w R y (K, k),
+    accumulated over chunks of points.
 
-    Also returns the unweighted basis blocks when they all fit in
+    Also returns the sqrt(w)-scaled basis blocks when they all fit in
     ``defaults.SH_FIT_CACHE_BYTES`` (so the residual pass need not rebuild them), else None.
     """
     K = (lmax + 1) ** 2
     n = p.shape[0]
-    G = np.zeros((K, K), order="F")
+    G = np.zeros((K, K), order="F") if with_matrix else None
     rhs = np.zeros((K, y.shape[1]))
     step = min(chunk_rows(K), n)
     keep = 8 * K * n <= defaults.SH_FIT_CACHE_BYTES
@@ -183,17 +205,25 @@ def _normal_equations(p, y, w, lmax):
         z, s, phi = _angles(p[sl])
         # rows scaled by sqrt(w) at no cost (folded into the Legendre recurrence start)
         B = _real_rows(lmax, z, s, phi, out=buf, scale=sw[sl], work=work)   # (K, c)
-        # G += B Bᵀ; B.T is a Fortran-ordered (c, K) view, so BLAS reads it without a copy
-        G = blas.dsyrk(1.0, B.T, beta=1.0, c=G, trans=1, lower=0, overwrite_c=1)
+        if with_matrix:
+            # G += B Bᵀ; B.T is a Fortran-ordered (c, K) view, so BLAS reads it without a copy
+            G = blas.dsyrk(1.0, B.T, beta=1.0, c=G, trans=1, lower=0, overwrite_c=1)
         rhs += B @ (sw[sl][:, None] * y[sl])
         if keep:
             blocks.append(B)
     return G, rhs, blocks
 
 
-def _fit(p, y, w, lmax, lam, penalty, sigma, heat) -> SHFit:
+def _fit(p, y, w, lmax, lam, penalty, sigma, heat, method) -> SHFit:
     K = (lmax + 1) ** 2
-    G, rhs, blocks = _normal_equations(p, y, w, lmax)
+    if method == "moments":
+        theta = np.arctan2(np.hypot(p[:, 0], p[:, 1]), p[:, 2])
+        phi = np.arctan2(p[:, 1], p[:, 0])
+        moments = _point_adjoint(theta, phi, w[:, None], 2 * lmax)[:, 0]
+        G = _normal_matrix(moments, lmax)
+        _, rhs, blocks = _normal_equations(p, y, w, lmax, with_matrix=False)
+    else:
+        G, rhs, blocks = _normal_equations(p, y, w, lmax)
     G = np.triu(G)
     G = G + np.triu(G, 1).T
     if lam > 0:
@@ -231,7 +261,7 @@ def _fit(p, y, w, lmax, lam, penalty, sigma, heat) -> SHFit:
     coeffs = SHCoefficients(c, lmax, "real")
     rms, rmax = _residuals(p, y, w, lmax, coeffs.values, blocks)
     return SHFit(coefficients=coeffs, residual_rms=rms, residual_max=rmax,
-                 condition=float(condition), solver=solver, rank=rank, n_points=p.shape[0],
+                 condition=float(condition), solver=solver, method=method, rank=rank, n_points=p.shape[0],
                  tikhonov=lam, penalty=penalty, heat_bandwidth=sigma)
 
 
