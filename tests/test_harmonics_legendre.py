@@ -105,8 +105,10 @@ def test_normalised_values_high_degree_against_scipy(full):
     ls = np.concatenate([np.full(l + 1, l) for l in range(lmax + 1)])
     ms = np.concatenate([np.arange(l + 1) for l in range(lmax + 1)])
     ref = special.assoc_legendre_p(ls[None, :], ms[None, :], x[:, None], norm=True)[0]
-    # 1e-12 absolute on values up to ~sqrt(lmax) ~ 14: the accuracy the issue demands.
-    np.testing.assert_allclose(P * np.sqrt(2 * np.pi), ref, atol=1e-12, rtol=0)
+    # 1e-12 absolute (the accuracy the issue demands) plus 1e-12 relative for scipy's own
+    # error at degree 200: at (l, m, x) = (149, 2, -0.9999) mpmath gives -4.617181455225846,
+    # ours -4.617181455225777, scipy -4.617181455224764 (checked while writing this test).
+    np.testing.assert_allclose(P * np.sqrt(2 * np.pi), ref, atol=1e-12, rtol=1e-12)
 
 
 def test_near_pole_high_degree_against_mpmath():
