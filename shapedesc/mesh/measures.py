@@ -81,9 +81,14 @@ def unique_edges(faces: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     counts : ndarray, shape (E,), int64
         Number of faces incident to each edge (2 on a closed manifold).
     """
-    e = np.concatenate([faces[:, [0, 1]], faces[:, [1, 2]], faces[:, [2, 0]]])
-    e = np.sort(e, axis=1)
-    edges, counts = np.unique(e, axis=0, return_counts=True)
+    f = np.asarray(faces, dtype=np.int64)
+    e = np.concatenate([f[:, [0, 1]], f[:, [1, 2]], f[:, [2, 0]]])
+    lo = e.min(axis=1)
+    hi = e.max(axis=1)
+    base = int(hi.max()) + 1 if len(hi) else 1
+    # One packed int64 key per edge: 1-D unique sorts far faster than unique(axis=0).
+    keys, counts = np.unique(lo * base + hi, return_counts=True)
+    edges = np.column_stack([keys // base, keys % base])
     return edges.astype(np.int64), counts.astype(np.int64)
 
 
