@@ -178,3 +178,25 @@ def test_level5_targets(full):
         assert m.qc.n_flipped == 0 and max(m.qc.flips_per_stage.values()) == 0
         assert m.qc.area_log_sd <= 0.10  # issue 4 acceptance
         assert -0.3 <= m.qc.area_log_p01 and m.qc.area_log_p99 <= 0.3
+
+
+def test_energy_gradient_matches_finite_differences():
+    # central differences along a random tangent direction (common practice); step 1e-6
+    # gives truncation ~1e-12 and round-off ~1e-10 relative to the slope
+    from shapedesc.sphere.area import _retract
+    from shapedesc.sphere.conformal import conformal_sphere_map
+    v, f = bumpy(0.3, 3, 2)
+    x = conformal_sphere_map(v, f).sphere_vertices
+    for w in (0.0, 0.7):
+        p = AreaProblem(v, f, shear_weight=w, what="bumpy")
+        e, g = p.energy_grad(x)
+        assert e == pytest.approx(p.energy(x), rel=1e-14)
+        d = np.random.default_rng(3).normal(size=x.shape)
+        d -= np.einsum("ij,ij->i", d, x)[:, None] * x
+        h = 1e-6
+        fd = (p.energy(_retract(x, d, h)) - p.energy(_retract(x, d, -h))) / (2 * h)
+        assert fd == pytest.approx(np.vdot(g, d), rel=1e-6)
+    # flips are barred: a folded face gives infinite energy
+    bad = x.copy()
+    bad[f[0, 0]] = -bad[f[0, 0]]
+    assert p.energy(bad) == np.inf

@@ -167,7 +167,8 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
         x, mob_it = mobius_centre(conf.sphere_vertices, va, what=f"{source}: Möbius centring")
         t_centre += time.perf_counter() - tc
         det = sphere_face_det(x, f)
-        if det.min() > SPHERE_MIN_REL_DET * det.mean():
+        if (conf.flips_planar == 0 and conf.flips_projected == 0
+                and det.min() > SPHERE_MIN_REL_DET * det.mean()):
             offset_used = lam
             break
     else:

@@ -153,7 +153,7 @@ class AreaProblem:
             pa, pb, pc = x[f[:, 0]], x[f[:, 1]], x[f[:, 2]]
             q = (self.cot[:, 0] * _sq(pc - pb) + self.cot[:, 1] * _sq(pa - pc)
                  + self.cot[:, 2] * _sq(pb - pa))
-            e += self.w * (np.sum(self.a * q / (2.0 * det)) - 1.0)
+            e += self.w * np.sum(self.a * _shear(q / (2.0 * det))[0])
         return float(e)
 
     def energy_grad(self, x: np.ndarray) -> tuple[float, np.ndarray]:
@@ -172,9 +172,11 @@ class AreaProblem:
             eab, ebc, eca = pb - pa, pc - pb, pa - pc
             c0, c1, c2 = self.cot[:, 0:1], self.cot[:, 1:2], self.cot[:, 2:3]
             q = c0[:, 0] * _sq(ebc) + c1[:, 0] * _sq(eca) + c2[:, 0] * _sq(eab)
-            e += self.w * (np.sum(self.a * q / (2.0 * det)) - 1.0)
-            beta = beta - self.w * self.a * q / (2.0 * det**2)
-            gam = (self.w * self.a / det)[:, None]  # d(w a q/(2 det))/dq · 2
+            h, dh = _shear(q / (2.0 * det))
+            e += self.w * np.sum(self.a * h)
+            wad = self.w * self.a * dh  # d(shear)/dK per face, times w·a
+            beta = beta - wad * q / (2.0 * det**2)
+            gam = (wad / det)[:, None]  # dK/dq = 1/(2 det), times 2 from d|e|²
             ga = beta[:, None] * bxc + gam * (c1 * eca - c2 * eab)
             gb = beta[:, None] * cxa + gam * (c0 * (-ebc) + c2 * eab)
             gc = beta[:, None] * axb + gam * (c0 * ebc - c1 * eca)
@@ -198,6 +200,20 @@ class AreaProblem:
         h = self._precond(g)
         h -= np.einsum("ij,ij->i", h, x)[:, None] * x
         return h
+
+
+def _shear(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Shear penalty ``h(K) = arccosh(K)² = (log(σ₁/σ₂))²`` and ``dh/dK``.
+
+    ``K = (σ₁² + σ₂²)/(2σ₁σ₂) = cosh(log(σ₁/σ₂))``; values below 1 (round-off, or the
+    ``det`` vs chordal-area gap on large faces) count as 1.
+    """
+    t = np.maximum(K - 1.0, 0.0)
+    ac = np.arccosh1p(t) if hasattr(np, "arccosh1p") else np.arccosh(1.0 + t)
+    small = t < 1e-6
+    safe = np.where(small, 1.0, t * (t + 2.0))
+    dh = np.where(small, 2.0 - (2.0 / 3.0) * t, 2.0 * ac / np.sqrt(safe))
+    return ac**2, dh
 
 
 def _sq(v: np.ndarray) -> np.ndarray:
