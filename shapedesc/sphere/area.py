@@ -145,31 +145,37 @@ class AreaProblem:
     # ------------------------------------------------------------------ energy
     def dets(self, x: np.ndarray) -> np.ndarray:
         f = self.faces
-        return np.einsum("ij,ij->i", x[f[:, 0]], np.cross(x[f[:, 1]], x[f[:, 2]]))
+        return _dot(x[f[:, 0]], _cross(x[f[:, 1]], x[f[:, 2]]))
 
     def energy(self, x: np.ndarray, det: np.ndarray | None = None) -> float:
         """Energy at unit vectors ``x`` (V, 3); ``inf`` when a face has ``d_f <= 0``."""
         f = self.faces
+        pa, pb, pc = x[f[:, 0]], x[f[:, 1]], x[f[:, 2]]
         if det is None:
-            det = self.dets(x)
+            det = _dot(pa, _cross(pb, pc))
         if det.min() <= 0.0:
             return np.inf
         D = det.sum()
         e = D * np.sum(self.a2 / det) - 1.0
         if self.w:
-            pa, pb, pc = x[f[:, 0]], x[f[:, 1]], x[f[:, 2]]
             q = (self.cot[:, 0] * _sq(pc - pb) + self.cot[:, 1] * _sq(pa - pc)
                  + self.cot[:, 2] * _sq(pb - pa))
             e += self.w * np.sum(self.a * _shear(q / (2.0 * det))[0])
         return float(e)
 
-    def energy_grad(self, x: np.ndarray) -> tuple[float, np.ndarray]:
-        """Energy and its tangent gradient (V, 3) at unit vectors ``x``."""
+    def energy_grad(self, x: np.ndarray, *, allow_flip: bool = False):
+        """Energy and its tangent gradient (V, 3) at unit vectors ``x``.
+
+        With ``allow_flip`` a flipped face gives ``(inf, None)`` instead of an error
+        (the line search's trial points).
+        """
         f = self.faces
         pa, pb, pc = x[f[:, 0]], x[f[:, 1]], x[f[:, 2]]
-        bxc, cxa, axb = np.cross(pb, pc), np.cross(pc, pa), np.cross(pa, pb)
-        det = np.einsum("ij,ij->i", pa, bxc)
+        bxc, cxa, axb = _cross(pb, pc), _cross(pc, pa), _cross(pa, pb)
+        det = _dot(pa, bxc)
         if det.min() <= 0.0:
+            if allow_flip:
+                return np.inf, None
             raise ConvergenceError(f"{self.what}: area correction reached a flipped face")
         D = det.sum()
         S = np.sum(self.a2 / det)
@@ -223,8 +229,21 @@ def _shear(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ac**2, dh
 
 
+def _cross(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Row-wise cross product of (n, 3) arrays (faster than ``np.cross`` for this shape)."""
+    out = np.empty_like(a)
+    out[:, 0] = a[:, 1] * b[:, 2] - a[:, 2] * b[:, 1]
+    out[:, 1] = a[:, 2] * b[:, 0] - a[:, 0] * b[:, 2]
+    out[:, 2] = a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]
+    return out
+
+
+def _dot(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    return a[:, 0] * b[:, 0] + a[:, 1] * b[:, 1] + a[:, 2] * b[:, 2]
+
+
 def _sq(v: np.ndarray) -> np.ndarray:
-    return np.einsum("ij,ij->i", v, v)
+    return v[:, 0] ** 2 + v[:, 1] ** 2 + v[:, 2] ** 2
 
 
 def _retract(x: np.ndarray, d: np.ndarray, t: float) -> np.ndarray:
@@ -306,17 +325,17 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
         else:
             t = 1.0
         # ---- backtracking Armijo line search; flipped faces give E = inf -> rejected
+        # (the gradient is computed with the trial energy: the first trial is usually taken)
         accepted = False
         for _ in range(60):
             x_new = _retract(x, d, t)
-            e_new = problem.energy(x_new)
+            e_new, g_new = problem.energy_grad(x_new, allow_flip=True)
             if e_new <= e + 1e-4 * t * slope:
                 accepted = True
                 break
             t *= 0.5
         if not accepted:
             break  # no decrease possible at machine precision: stationary point
-        e_new, g_new = problem.energy_grad(x_new)
         s = x_new - x
         y = g_new - g
         if np.vdot(s, y) > 1e-12 * np.sqrt(np.vdot(s, s) * np.vdot(y, y)) and lbfgs:
