@@ -229,6 +229,12 @@ def _shear(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ac**2, dh
 
 
+def _vdot(a: np.ndarray, b: np.ndarray) -> float:
+    """Inner product by numpy's own pairwise summation, not BLAS: the result does not
+    depend on how many threads a BLAS library would split the sum into."""
+    return float(np.sum(a * b))
+
+
 def _cross(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Row-wise cross product of (n, 3) arrays (faster than ``np.cross`` for this shape)."""
     out = np.empty_like(a)
@@ -291,8 +297,8 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
         q = g.copy()
         alphas = []
         for s, y in zip(reversed(hist_s), reversed(hist_y)):
-            rho = 1.0 / np.vdot(y, s)
-            a = rho * np.vdot(s, q)
+            rho = 1.0 / _vdot(y, s)
+            a = rho * _vdot(s, q)
             alphas.append(a)
             q -= a * y
         r = problem.precondition(q, x) if precondition else q
@@ -303,22 +309,22 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
             if gamma is None or it % 8 == 0 or not precondition:
                 s, y = hist_s[-1], hist_y[-1]
                 hy = problem.precondition(y, x) if precondition else y
-                gamma = np.vdot(s, y) / np.vdot(y, hy)
+                gamma = _vdot(s, y) / _vdot(y, hy)
             r *= gamma
         else:
             gamma = None
         for (s, y), a in zip(zip(hist_s, hist_y), reversed(alphas)):
-            rho = 1.0 / np.vdot(y, s)
-            b = rho * np.vdot(y, r)
+            rho = 1.0 / _vdot(y, s)
+            b = rho * _vdot(y, r)
             r += (a - b) * s
         d = -r
-        slope = np.vdot(g, d)
+        slope = _vdot(g, d)
         if not slope < 0:  # not a descent direction: restart with the preconditioned gradient
             hist_s.clear()
             hist_y.clear()
             gamma = None
             d = -(problem.precondition(g, x) if precondition else g)
-            slope = np.vdot(g, d)
+            slope = _vdot(g, d)
         if not hist_s:
             # first step of a (re)start: limit the largest vertex move to 0.05 rad
             t = min(1.0, 0.05 / max(np.sqrt(np.max(np.einsum("ij,ij->i", d, d))), 1e-300))
@@ -338,7 +344,7 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
             break  # no decrease possible at machine precision: stationary point
         s = x_new - x
         y = g_new - g
-        if np.vdot(s, y) > 1e-12 * np.sqrt(np.vdot(s, s) * np.vdot(y, y)) and lbfgs:
+        if _vdot(s, y) > 1e-12 * np.sqrt(_vdot(s, s) * _vdot(y, y)) and lbfgs:
             hist_s.append(s)
             hist_y.append(y)
             if len(hist_s) > memory:

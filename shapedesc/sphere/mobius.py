@@ -71,21 +71,21 @@ def mobius_centre(sphere_vertices: np.ndarray, weights: np.ndarray, *, what: str
     """
     x = np.array(sphere_vertices, dtype=np.float64)
     w = np.asarray(weights, dtype=np.float64) / np.sum(weights)
-    g = w @ x
+    g = np.einsum("i,ij->j", w, x)  # not BLAS: thread-count independent
     for it in range(max_iter + 1):
         gn = np.linalg.norm(g)
         if gn < tol:
             return x, it
         if it == max_iter:
             break
-        J = 2.0 * (np.eye(3) - (x * w[:, None]).T @ x)
+        J = 2.0 * (np.eye(3) - np.einsum("i,ij,ik->jk", w, x, x))
         c = -np.linalg.solve(J, g)
         cn = np.linalg.norm(c)
         if cn > 0.5:
             c *= 0.5 / cn
         for _ in range(60):
             x_new = hyperbolic_translation(x, c)
-            g_new = w @ x_new
+            g_new = np.einsum("i,ij->j", w, x_new)
             if np.linalg.norm(g_new) < gn:
                 break
             c *= 0.5
