@@ -18,7 +18,8 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from ..defaults import SPHERE_CROWDING_OFFSETS, SPHERE_MIN_REL_DET, SPHERE_SHEAR_WEIGHT
+from ..defaults import (SPHERE_CROWDING_OFFSETS, SPHERE_LU_ORDERING, SPHERE_MIN_REL_DET,
+                        SPHERE_SHEAR_WEIGHT)
 from ..errors import ConvergenceError, SphereMapError
 from ..mesh.measures import vertex_areas
 from . import qc as _qc
@@ -210,8 +211,9 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
         seconds_centring=t2 - t1, seconds_area=t3 - t2, seconds_total=t4 - t0,
         iterations=int(res.iterations))
     params = {"shear_weight": float(shear_weight), "iterations": int(res.iterations),
-              "solver": "L-BFGS (Laplacian-preconditioned), backtracking line search",
-              "ordering": "see shapedesc.sphere.linsolve", "puncture_face": conf.puncture_face,
+              "solver": ("multiresolution (icosphere grids) + L-BFGS with (L + eps M)^-1 "
+                         "preconditioner, flip-rejecting Armijo backtracking"),
+              "ordering": f"SuperLU {SPHERE_LU_ORDERING}, diag_pivot_thresh 0", "puncture_face": conf.puncture_face,
               "pole_correction_used": conf.pole_correction_used,
               "mobius_iterations": int(mob_it),
               "crowding_offset_edges": int(offset_used), "levels": list(res.levels), "source": source}
