@@ -132,9 +132,10 @@ def bent_tube(length: float = 6.0, radius: float = 1.0, bend: float = np.pi / 2,
               *, frequency: int | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Elongated, tapered tube bent along a circular arc (hippocampus-like).
 
-    The sphere point (x, y, z) goes to ``c(s) + r(z)·(x·N(s) + y·B(s))/sqrt(1 − z²)·sqrt(1 − z²)``,
-    i.e. the cross-section at arc length ``s = z·length/2`` is an ellipse-profile disc of
-    radius ``radius·(1 + 0.25 z)·sqrt(1 − z²)`` (thicker head, thinner tail), placed
+    The sphere point (x, y, z) goes to ``c(s) + r(z)·(x·N(s) + y·B(s))`` with
+    ``s = z·length/2`` and ``r(z) = radius·(1 + 0.25 z)``; since x² + y² = 1 − z², the
+    cross-section at arc length ``s`` is a circle of radius ``r(z)·sqrt(1 − z²)``
+    (ellipsoid-like profile, thicker head, thinner tail), placed
     perpendicular to a centreline that is a circular arc of total turning angle ``bend``
     (radians) in the x–z plane. A straight tube when ``bend = 0``.
 
