@@ -141,6 +141,13 @@ def anatomy_surfaces(names):
     return out
 
 
+def _write(results):
+    OUT.parent.mkdir(parents=True, exist_ok=True)
+    tmp = OUT.with_suffix(".json.part")
+    tmp.write_text(json.dumps(results, indent=2))
+    tmp.replace(OUT)
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="20k only, tube only")
@@ -169,6 +176,7 @@ def main(argv=None):
             results["maps"].append(row)
             continue
         results["maps"].append(row)
+        _write(results)  # incremental: a long case does not lose the earlier rows
         print(f"{name:18s} {len(v):7d} {row['flips_all_stages']:5d} {row['area_log_sd']:7.4f} "
               f"{row['area_log_p01']:7.3f} {row['area_log_p99']:7.3f} {row['angle_mean_deg']:7.2f} "
               f"{row['iterations']:5d} {row['cpu_s']:7.2f} {row['wall_s']:7.2f}")
@@ -195,8 +203,7 @@ def main(argv=None):
             for thr in (0.0, 1.0):
                 print(f"    {spec:14s} pivot thresh {thr:g}: {fb[f'{spec}_pivot{thr:g}_s']:.3f} s, "
                       f"fill {fb[f'{spec}_pivot{thr:g}_fill']:,}")
-    OUT.parent.mkdir(parents=True, exist_ok=True)
-    OUT.write_text(json.dumps(results, indent=2))
+    _write(results)
     print(f"\nwrote {OUT}")
     return 0
 
