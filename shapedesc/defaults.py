@@ -199,9 +199,10 @@ SPHERE_FLIP_DET: float = 0.0
 
 # --------------------------------------------------------------------------- descriptors
 #: Nearest face centroids examined per query in point-to-mesh distances (count).
-#: 16 makes the query exact on the near-uniform meshes used here (checked against a
-#: brute-force search in tests/test_mesh_distance.py).
-DISTANCE_CANDIDATE_FACES: int = 16
+#: 8 makes the query exact on the near-uniform meshes used here (checked against a
+#: brute-force search in tests/test_mesh_distance.py; 16 changed mean distances on a
+#: 20,000-vertex tube by < 1e-7 mm at twice the cost).
+DISTANCE_CANDIDATE_FACES: int = 8
 
 #: Scale normalisations offered for descriptors: none, cube root of the enclosed volume,
 #: square root of the surface area.

@@ -327,7 +327,7 @@ def describe_surface(surface: Surface, *, degree: int = defaults.DEFAULT_DEGREE,
 
     # Residual: the reconstruction evaluated at the input's own sphere positions,
     # with the input's connectivity, is the fitted surface.
-    fitted = np.asarray(result.coefficients.evaluate(u), dtype=np.float64)
+    fitted = np.asarray(result.fitted, dtype=np.float64)
     d_in = point_to_mesh_distance(v, fitted, f)
     d_out = point_to_mesh_distance(fitted, v, f)
     residual = FitResidual(rms_mm=float(np.sqrt(np.sum(weights * d_in**2))),

@@ -71,6 +71,9 @@ class SHFit:
         sqrt(Σ w̃ r² / Σ w̃) per channel for the returned coefficients (units of values).
     residual_max : ndarray, shape (k,)
         Largest |r| per channel (units of values).
+    fitted : ndarray, shape (n, k)
+        The expansion evaluated at the input points (units of values), read-only; the
+        residual pass computes it anyway, so callers need not evaluate again.
     condition : float
         Condition number estimate of the Jacobi-scaled normal matrix (LAPACK dpocon
         1-norm estimate on the Cholesky path, exact 2-norm on the eigen path; inf when
@@ -90,6 +93,7 @@ class SHFit:
     coefficients: SHCoefficients
     residual_rms: np.ndarray
     residual_max: np.ndarray
+    fitted: np.ndarray
     condition: float
     solver: str
     method: str
@@ -264,8 +268,8 @@ def _fit(p, y, w, lmax, lam, penalty, sigma, heat, method) -> SHFit:
     c = cs / d[:, None]
     c *= heat[:, None]
     coeffs = SHCoefficients(c, lmax, "real")
-    rms, rmax = _residuals(p, y, w, lmax, coeffs.values, blocks)
-    return SHFit(coefficients=coeffs, residual_rms=rms, residual_max=rmax,
+    rms, rmax, fitted = _residuals(p, y, w, lmax, coeffs.values, blocks)
+    return SHFit(coefficients=coeffs, residual_rms=rms, residual_max=rmax, fitted=fitted,
                  condition=float(condition), solver=solver, method=method, rank=rank, n_points=p.shape[0],
                  tikhonov=lam, penalty=penalty, heat_bandwidth=sigma)
 
@@ -277,6 +281,7 @@ def _residuals(p, y, w, lmax, c, blocks):
     step = min(chunk_rows(K), n)
     ss = np.zeros(y.shape[1])
     rmax = np.zeros(y.shape[1])
+    fitted = np.empty_like(y)
     sw = np.sqrt(w)
     buf = work = None
     if blocks is None:
@@ -301,7 +306,8 @@ def _residuals(p, y, w, lmax, c, blocks):
             zz, zs, zphi = _angles(p[sl][~pos])
             r[~pos] = y[sl][~pos] - _real_rows(lmax, zz, zs, zphi).T @ c
         rmax = np.maximum(rmax, np.abs(r).max(axis=0))
+        fitted[sl] = y[sl] - r
     rms = np.sqrt(ss / w.sum())
-    for a in (rms, rmax):
+    for a in (rms, rmax, fitted):
         a.setflags(write=False)
-    return rms, rmax
+    return rms, rmax, fitted
