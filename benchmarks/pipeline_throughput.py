@@ -113,7 +113,10 @@ def main(argv=None) -> int:
         identical_12 = _tables(tmp / "one") == _tables(tmp / "two")
         cached, t_kill = _kill_at_half(manifest_path, tmp / "resume", args.n, 2)
         t3, r3 = _timed_run(read_manifest(manifest_path), tmp / "resume", 2)
-        identical_resume = _tables(tmp / "resume") == _tables(tmp / "two")
+        t_res, t_two = _tables(tmp / "resume"), _tables(tmp / "two")
+        identical_resume = t_res == t_two
+        differing = sorted(k for k in set(t_res) | set(t_two) if t_res.get(k) != t_two.get(k))
+        tables_resume = all(t_res.get(k) == t_two.get(k) for k in t_two if k.endswith(".tsv"))
     rows = [
         ("1 worker", args.n, t1, args.n / t1, r1.n_computed, r1.n_failed),
         ("2 workers", args.n, t2, args.n / t2, r2.n_computed, r2.n_failed),
@@ -129,7 +132,8 @@ def main(argv=None) -> int:
     print(f"scaling 1 -> 2 workers: {scaling:.2f}x (target >= 1.8x); 2 workers all {args.n} in "
           f"{t2:.1f} s (target <= 120 s); killed after {t_kill:.1f} s with {cached} cached, "
           f"resume computed {r3.n_computed} (expected {args.n - cached}); tables identical "
-          f"1 vs 2 workers: {identical_12}, resumed vs uninterrupted: {identical_resume}")
+          f"1 vs 2 workers: {identical_12}, resumed vs uninterrupted: {identical_resume} "
+          f"(.tsv tables alone: {tables_resume}; differing files: {differing[:5]})")
     RESULTS.parent.mkdir(parents=True, exist_ok=True)
     RESULTS.write_text(json.dumps({
         "n_surfaces": args.n, "n_vertices": n_vertices, "degree": 15,
@@ -140,6 +144,7 @@ def main(argv=None) -> int:
         "killed_with_cached": cached, "resume_seconds": t3,
         "resume_computed": r3.n_computed, "resume_expected": args.n - cached,
         "identical_1_vs_2": identical_12, "identical_resume": identical_resume,
+        "tables_identical_resume": tables_resume, "differing_files_resume": differing,
         "failed": [r1.n_failed, r2.n_failed, r3.n_failed],
     }, indent=2) + "\n")
     print(f"wrote {RESULTS}")
