@@ -31,6 +31,10 @@ def atomic_path(path: str | os.PathLike, *, overwrite: bool = True):
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name.split('.')[0]}.", suffix=".part" + suffix,
                                dir=path.parent)
     os.close(fd)
+    # mkstemp creates 0600; give the final file the permissions an ordinary open() would.
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         yield Path(tmp)
         os.replace(tmp, path)
