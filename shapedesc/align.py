@@ -181,8 +181,13 @@ def canonical_pose(values: np.ndarray, *, surface_vertices: np.ndarray,
         v[:, 2] *= -1
     warn: list[str] = []
     if np.linalg.det(v) < 0:
-        # det A < 0: the map reverses orientation; keep U proper and let V carry it.
-        warn.append("first-order map reverses orientation (det A < 0): check face orientation")
+        # det A < 0: the first-order ellipsoid is traversed with reversed orientation
+        # (possible for strongly bent shapes even when the whole map preserves it).
+        # Keep both rotations proper: reverse V's third axis, so the canonical degree-1
+        # block is diag(s1, s2, -s3); record it.
+        v[:, 2] *= -1
+        warn.append("first-order ellipsoid has reversed orientation (det A < 0); "
+                    "canonical degree-1 block is diag(s1, s2, -s3)")
     centred = (surface_vertices - translation) @ u
     length3 = float(s[0]) ** 3
     for k in (0, 1):
