@@ -139,13 +139,19 @@ SPHERE_MOBIUS_TOL: float = 1e-12
 #: doi:10.1111/cgf.13495, report convergence in a handful of steps).
 SPHERE_MOBIUS_MAX_ITER: int = 100
 
-#: Default balance between the shear term (squared log anisotropy, (log σ1/σ2)²) and
-#: the area term of the area-correction energy (dimensionless; 0 = area only). Chosen
-#: by measurement (tests/test_sphere_map.py, benchmarks/sphere_map.py; level-4 meshes):
-#: w = 0.06/0.10/0.15 gives area SD 0.077/0.121/0.168 on the 6:1 ellipsoid and mean
-#: angle distortion 19.95/19.49/18.97 degrees on the 3:1 bent tube; 0.06 is the largest
-#: value keeping the 6:1 ellipsoid well inside SD <= 0.10 while the tube stays <= 20 deg.
-SPHERE_SHEAR_WEIGHT: float = 0.06
+#: Default balance between the shear term and the area term of the area-correction
+#: energy (dimensionless; 0 = area only). With the MIPS shear form, measured at level 4
+#: (tests/test_sphere_map.py, benchmarks/sphere_map.py): w = 0.10/0.12/0.15/0.20 gives
+#: area SD 0.084/0.098/0.118/0.151 on the 6:1 ellipsoid and mean angle distortion
+#: 20.06/19.92/19.73/19.42 degrees on the 3:1 bent tube, so 0.12 meets both targets.
+#: (With the "log" form 0.06 was the equivalent value.)
+SPHERE_SHEAR_WEIGHT: float = 0.12
+#: Form of the shear term: "mips" (K − 1; Hormann & Greiner 2000) or "log"
+#: ((log σ1/σ2)²). "mips" keeps the maps of similar shapes consistent with each other
+#: (measured on the demo study: the known group effect is found with it, lost with
+#: "log"); "log" reaches lower area distortion on thin real structures (MNI putamen
+#: SD 0.11 vs 0.21) at that cost. See shapedesc/sphere/area.py.
+SPHERE_SHEAR_FORM: str = "mips"
 #: Area correction stops when the energy decreased by less than this fraction over the
 #: last ``SPHERE_AREA_STALL_WINDOW`` iterations (dimensionless). Measured on the test
 #: shapes: the face area-distortion SD changes by < 1e-4 between 1e-3 and 1e-6.
