@@ -81,6 +81,7 @@ def _kill_at_half(manifest_path: Path, outdir: Path, n: int, jobs: int) -> tuple
     proc = subprocess.Popen([sys.executable, "-m", "shapedesc.cli.main", "-q", "describe",
                              str(manifest_path), "-o", str(outdir), "--jobs", str(jobs)],
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                            cwd=str(outdir.parent),  # not the source tree (see tests)
                             start_new_session=True)
     t0 = time.perf_counter()
     cache = outdir / ".cache"

@@ -90,7 +90,9 @@ def test_resume_after_kill_9_computes_only_the_rest(tmp_path):
     proc = subprocess.Popen(
         [sys.executable, "-m", "shapedesc.cli.main", "-q", "describe", str(manifest_path),
          "-o", str(out), "--degree", "6"],
-        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+        # cwd outside the source tree: `python -m` puts the cwd first on sys.path, and the
+        # source tree's shapedesc/ (without cli/, which is mapped in at install) would win
+        cwd=str(tmp_path), stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     cache = out / ".cache"
     deadline = time.monotonic() + 120
     while time.monotonic() < deadline and proc.poll() is None:
