@@ -133,18 +133,12 @@ def test_four_d_volume_unusable(files, capsys):
 def test_label_volume_row_per_label(files, capsys):
     code, rows = _json(capsys, [files["labels"]])
     assert len(rows) == 1 and rows[0]["label"] == 4 and rows[0]["kind"] == "label volume"
-    try:
-        import shapedesc.mesh.volume  # noqa: F401
-    except ImportError:
-        assert code == 1 and "volume path not available" in rows[0]["reasons"][0]
-        pytest.skip("shapedesc.mesh.volume.label_to_surface not written yet")
     assert code == 0 and rows[0]["verdict"] == "usable"
     assert rows[0]["euler_characteristic"] == 2
     assert rows[0]["volume_voxels_in_label"] == 27  # the 3x3x3 block written above
 
 
 def test_ring_label_goes_through_the_topology_fix(tmp_path, capsys):
-    pytest.importorskip("shapedesc.mesh.volume", reason="volume path not written yet")
     # a voxel ring (a solid torus, genus 1) and a block, with a negative-determinant affine
     x, y, z = np.mgrid[:30, :30, :16]
     data = np.zeros((30, 30, 16), np.int16)

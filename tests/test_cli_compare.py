@@ -202,7 +202,6 @@ def _coefficient_study(folder, n=16, lmax=4, seed=3):
 
 
 def test_pointwise_maps_and_mode_surfaces(tmp_path):
-    pytest.importorskip("shapedesc.reconstruct")
     nib = pytest.importorskip("nibabel")
     _coefficient_study(tmp_path / "d")
     out = tmp_path / "s"

@@ -24,8 +24,6 @@ from shapedesc.errors import PoseWarning
 from shapedesc.mesh import measures
 from shapedesc.surface import Surface
 
-if not hasattr(pytest.importorskip("shapedesc.sphere"), "map_to_sphere"):
-    pytest.skip("shapedesc.sphere.map_to_sphere has not landed yet", allow_module_level=True)
 
 
 def _ellipsoid_icosphere(a, b, c, level=4):

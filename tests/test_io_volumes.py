@@ -80,7 +80,7 @@ def test_negative_determinant_affine_keeps_left_right(tmp_path):
 
 def test_negative_determinant_surface_keeps_left_right(tmp_path):
     # through the volume path: a blob at high i must come out at negative x (x = 60 - 2 i)
-    volume_mod = pytest.importorskip("shapedesc.mesh.volume", reason="volume path not written yet")
+    import shapedesc.mesh.volume as volume_mod
     aff = np.array([[-2.0, 0, 0, 60.0], [0, 1.5, 0, -30.0], [0, 0, 3.0, -10.0], [0, 0, 0, 1]])
     data = np.zeros((40, 12, 12), np.int16)
     data[30:36, 3:9, 3:9] = 5   # i = 30..35 -> x from 0 down to -10 mm (voxel centres)

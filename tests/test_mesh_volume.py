@@ -66,7 +66,7 @@ def test_bad_affine_and_empty_mask():
 
 
 def test_label_volume_type_if_available():
-    volumes = pytest.importorskip("shapedesc.io.volumes")
+    import shapedesc.io.volumes as volumes
     data, _ = _ellipsoid_labels()
     vol = volumes.LabelVolume(data=data, affine=np.eye(4), path="lv.nii.gz")
     s, r = label_to_surface(vol, 5)

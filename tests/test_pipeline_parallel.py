@@ -15,7 +15,6 @@ import sys
 import time
 from pathlib import Path
 
-import nibabel as nib
 import numpy as np
 import pytest
 import trimesh
@@ -24,24 +23,12 @@ from shapedesc.pipeline.manifest import read_manifest
 from shapedesc.pipeline.run import DescribeParameters, run_study
 
 
-def _require_chain():
-    try:
-        from shapedesc.descriptors import describe_surface  # noqa: F401
-        from shapedesc.mesh.repair import prepare_surface  # noqa: F401
-        from shapedesc.sphere import map_to_sphere  # noqa: F401
-    except ImportError as exc:
-        pytest.skip(f"per-structure chain not landed yet: {exc}")
-
-
 def _gifti(path: Path, mesh: trimesh.Trimesh) -> None:
-    from nibabel.gifti import GiftiDataArray, GiftiImage
+    from shapedesc.io.surfaces import write_surface
+    from shapedesc.surface import Surface
 
     path.parent.mkdir(parents=True, exist_ok=True)
-    nib.save(GiftiImage(darrays=[
-        GiftiDataArray(mesh.vertices.astype(np.float32), intent="NIFTI_INTENT_POINTSET",
-                       datatype="NIFTI_TYPE_FLOAT32"),
-        GiftiDataArray(mesh.faces.astype(np.int32), intent="NIFTI_INTENT_TRIANGLE",
-                       datatype="NIFTI_TYPE_INT32")]), str(path))
+    write_surface(Surface(mesh.vertices, mesh.faces, source=str(path)), path, overwrite=True)
 
 
 def _study(root: Path, n: int, *, subdivisions: int = 2, bad: bool = True) -> Path:
@@ -73,7 +60,6 @@ PARAMS = DescribeParameters(degree=6)
 
 
 def test_two_local_workers_give_the_same_bytes_as_one(tmp_path):
-    _require_chain()
     manifest = read_manifest(_study(tmp_path / "study", 4))
     one = run_study(manifest, tmp_path / "one", parameters=PARAMS, jobs=1)
     two = run_study(manifest, tmp_path / "two", parameters=PARAMS, jobs=2)
@@ -83,7 +69,6 @@ def test_two_local_workers_give_the_same_bytes_as_one(tmp_path):
 
 
 def test_resume_after_kill_9_computes_only_the_rest(tmp_path):
-    _require_chain()
     n = 8
     manifest_path = _study(tmp_path / "study", n, bad=False)
     out = tmp_path / "out"
@@ -117,7 +102,6 @@ def test_resume_after_kill_9_computes_only_the_rest(tmp_path):
 
 @pytest.mark.slow
 def test_dask_local_cluster_gives_the_same_bytes(tmp_path, full):
-    _require_chain()
     distributed = pytest.importorskip("distributed")
     manifest = read_manifest(_study(tmp_path / "study", 20 if full else 2))
     run_study(manifest, tmp_path / "local", parameters=PARAMS, jobs=1)

@@ -23,29 +23,13 @@ from shapedesc.pipeline.manifest import read_manifest
 from shapedesc.pipeline.run import DescribeParameters, exit_status, run_study
 
 
-@pytest.fixture
-def chain():
-    """Skip unless every stage of the per-structure chain is importable."""
-    for module in ("shapedesc.io.surfaces", "shapedesc.io.volumes", "shapedesc.mesh.repair",
-                   "shapedesc.mesh.volume", "shapedesc.descriptors"):
-        pytest.importorskip(module, reason=f"needs {module}")
-    try:
-        from shapedesc.sphere import map_to_sphere  # noqa: F401
-    except ImportError as exc:
-        pytest.skip(f"sphere map not landed: {exc}")
-
-
 # --------------------------------------------------------------------------- study
 def _gifti(path: Path, mesh: trimesh.Trimesh) -> None:
-    from nibabel.gifti import GiftiDataArray, GiftiImage
+    from shapedesc.io.surfaces import write_surface
+    from shapedesc.surface import Surface
 
-    img = GiftiImage(darrays=[
-        GiftiDataArray(mesh.vertices.astype(np.float32), intent="NIFTI_INTENT_POINTSET",
-                       datatype="NIFTI_TYPE_FLOAT32"),
-        GiftiDataArray(mesh.faces.astype(np.int32), intent="NIFTI_INTENT_TRIANGLE",
-                       datatype="NIFTI_TYPE_INT32")])
     path.parent.mkdir(parents=True, exist_ok=True)
-    nib.save(img, str(path))
+    write_surface(Surface(mesh.vertices, mesh.faces, source=str(path)), path, overwrite=True)
 
 
 def _label_volume(path: Path, labels=(1, 2)) -> None:
@@ -101,7 +85,7 @@ def _read_tsv(path: Path) -> list[dict]:
 PARAMS = DescribeParameters(degree=4)
 
 
-def test_bad_subjects_are_recorded_and_the_rest_goes_on(tmp_path, chain):
+def test_bad_subjects_are_recorded_and_the_rest_goes_on(tmp_path):
     manifest = read_manifest(make_study(tmp_path / "study"))
     out = tmp_path / "out"
     result = run_study(manifest, out, parameters=PARAMS)
@@ -148,7 +132,7 @@ def test_bad_subjects_are_recorded_and_the_rest_goes_on(tmp_path, chain):
     assert run["dependencies"]["numpy"] == np.__version__
 
 
-def test_rerun_computes_nothing_and_writes_identical_bytes(tmp_path, chain):
+def test_rerun_computes_nothing_and_writes_identical_bytes(tmp_path):
     manifest = read_manifest(make_study(tmp_path / "study", n=2))
     out = tmp_path / "out"
     run_study(manifest, out, parameters=PARAMS)
@@ -167,7 +151,7 @@ def test_rerun_computes_nothing_and_writes_identical_bytes(tmp_path, chain):
     assert "s01" not in (out / "spectra.tsv").read_text()
 
 
-def test_resume_computes_only_missing_items(tmp_path, chain):
+def test_resume_computes_only_missing_items(tmp_path):
     manifest = read_manifest(make_study(tmp_path / "study", n=2, bad=False))
     full = tmp_path / "full"
     run_study(manifest, full, parameters=PARAMS)
@@ -187,7 +171,7 @@ def test_resume_computes_only_missing_items(tmp_path, chain):
     assert _tables(part) == _tables(full)
 
 
-def test_refusals(tmp_path, chain):
+def test_refusals(tmp_path):
     manifest = read_manifest(make_study(tmp_path / "study", n=2, bad=False))
     out = tmp_path / "out"
     run_study(manifest, out, parameters=PARAMS)
@@ -219,7 +203,7 @@ def test_parameters_and_exit_status_are_validated():
     assert [exit_status(n) for n in (0, 3, 100, 5000)] == [0, 3, 100, 100]
 
 
-def test_progress_shows_a_bar_on_a_terminal_and_log_lines_otherwise(tmp_path, chain, caplog):
+def test_progress_shows_a_bar_on_a_terminal_and_log_lines_otherwise(tmp_path, caplog):
     import logging
 
     from shapedesc.pipeline.progress import ProgressReporter

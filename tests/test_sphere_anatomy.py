@@ -17,11 +17,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-template_anatomy = pytest.importorskip("shapedesc.mesh.template_anatomy",
-                                       reason="needs shapedesc.mesh.template_anatomy")
-volume = pytest.importorskip("shapedesc.mesh.volume", reason="needs shapedesc.mesh.volume")
-
-from shapedesc.sphere import map_to_sphere, pull_back  # noqa: E402
+import shapedesc.mesh.template_anatomy as template_anatomy
+import shapedesc.mesh.volume as volume
+from shapedesc.sphere import map_to_sphere, pull_back
 
 # issue 4 acceptance: SD <= 0.10 for compact shapes (deep grey matter), <= 0.15 for a
 # real hemisphere; 1st/99th percentiles of the log area ratio within ±0.3

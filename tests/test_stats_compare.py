@@ -72,7 +72,6 @@ def test_table_problems_are_named():
 
 
 def test_pointwise_stacked_synthesis_equals_per_subject_reconstruction():
-    pytest.importorskip("shapedesc.reconstruct")
     from shapedesc.reconstruct import reconstruct_values
     from shapedesc.stats.compare import pointwise_comparison
     from shapedesc.stats.design import build_design

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy import stats
 
 from shapedesc.errors import StatsInputError
 from shapedesc.stats.glm import fit_contrast

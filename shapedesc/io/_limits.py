@@ -42,6 +42,26 @@ def check_file(path: Path, *, max_bytes: int, kind: str) -> int:
     return size
 
 
+def _drain(d, data: bytes, *, limit: int, too_large: str, sink: list | None = None) -> int:
+    """Inflate ``data`` with decompressor ``d`` chunk by chunk; return the inflated size.
+
+    Raises InputTooLargeError(``too_large``) as soon as more than ``limit`` bytes come out;
+    inflated chunks are appended to ``sink`` when one is given, else dropped.
+    """
+    total = 0
+    buf = data
+    while True:
+        out = d.decompress(buf, _CHUNK)
+        total += len(out)
+        if total > limit:
+            raise InputTooLargeError(too_large)
+        if sink is not None:
+            sink.append(out)
+        buf = d.unconsumed_tail
+        if d.eof or (not buf and not out):
+            return total
+
+
 def _inflate(raw: bytes, *, path: Path, max_bytes: int, keep: bool) -> bytes | int:
     """Inflate all gzip members of ``raw`` chunk by chunk; refuse past ``max_bytes``.
 
@@ -53,23 +73,13 @@ def _inflate(raw: bytes, *, path: Path, max_bytes: int, keep: bool) -> bytes | i
     data = raw
     while data:
         d = zlib.decompressobj(wbits=31)  # 31: gzip header and trailer
-        buf = data
         try:
-            while True:
-                out = d.decompress(buf, _CHUNK)
-                total += len(out)
-                if total > max_bytes:
-                    raise InputTooLargeError(
-                        f"{path}: the gzip stream inflates past the limit of {_mib(max_bytes)} "
-                        "(refused without inflating the rest; a file this large is not a "
-                        "plausible surface or label volume, it may be a decompression bomb). "
-                        "Raise max_bytes if the file is genuine."
-                    )
-                if keep:
-                    parts.append(out)
-                buf = d.unconsumed_tail
-                if d.eof or (not buf and not out):
-                    break
+            total += _drain(
+                d, data, limit=max_bytes - total, sink=parts if keep else None,
+                too_large=(f"{path}: the gzip stream inflates past the limit of {_mib(max_bytes)} "
+                           "(refused without inflating the rest; a file this large is not a "
+                           "plausible surface or label volume, it may be a decompression bomb). "
+                           "Raise max_bytes if the file is genuine."))
             if not d.eof:
                 raise SurfaceFormatError(
                     f"{path}: the gzip stream ends early (truncated file, inflated "
@@ -117,21 +127,10 @@ def read_bytes_limited(path: Path, *, max_bytes: int, kind: str) -> tuple[bytes,
 
 def check_zlib_payload(payload: bytes, *, limit: int, path: Path, what: str) -> None:
     """Refuse a zlib payload (e.g. a GIFTI ``GZipBase64Binary`` array) inflating past ``limit``."""
-    d = zlib.decompressobj()
-    total = 0
-    buf = payload
     try:
-        while True:
-            out = d.decompress(buf, _CHUNK)
-            total += len(out)
-            if total > limit:
-                raise InputTooLargeError(
-                    f"{path}: {what} inflates past {_mib(limit)} (more than its declared "
-                    "size allows, or past the input limit); refused without inflating the rest."
-                )
-            buf = d.unconsumed_tail
-            if d.eof or (not buf and not out):
-                break
+        _drain(zlib.decompressobj(), payload, limit=limit,
+               too_large=(f"{path}: {what} inflates past {_mib(limit)} (more than its declared "
+                          "size allows, or past the input limit); refused without inflating the rest."))
     except zlib.error as exc:
         raise SurfaceFormatError(f"{path}: {what} is corrupt ({exc}); re-export the file.") from None
 

@@ -19,6 +19,7 @@ import numpy as np
 from shapedesc import defaults
 from shapedesc.io.surfaces import sniff_format
 from shapedesc.mesh.validate import UNUSABLE, MeshReport
+from shapedesc.mesh.volume import label_to_surface
 
 logger = logging.getLogger(__name__)
 
@@ -26,7 +27,6 @@ logger = logging.getLogger(__name__)
 ROW_FIELDS: tuple[str, ...] = ("input", "label", "kind") + tuple(
     f.name for f in dataclasses.fields(MeshReport))
 
-VOLUME_PATH_MISSING = "volume path not available (shapedesc.mesh.volume.label_to_surface)"
 
 
 def looks_like_volume(path: str | Path) -> bool:
@@ -135,13 +135,6 @@ def check_volume_file(path: str | Path, *, labels: list[int] | None = None,
             volume.require_label(label)
         except LabelError as exc:
             rows.append(_error_row(str(path), exc, label=int(label), kind="label volume"))
-            continue
-        try:
-            from shapedesc.mesh.volume import label_to_surface
-        except ImportError as exc:
-            rows.append(_error_row(str(path), RuntimeError(
-                f"{path}#label={label}: {VOLUME_PATH_MISSING} ({exc})"),
-                label=int(label), kind="label volume"))
             continue
         try:
             surface, vreport = label_to_surface(volume, int(label), **(volume_options or {}))
