@@ -77,6 +77,20 @@ MAX_HOLE_EDGES: int = 16
 #: Fewest vertices of a closed triangle surface (a tetrahedron has 4).
 MIN_SURFACE_VERTICES: int = 4
 
+#: An integer volume read as labels is flagged as a quantised probability/intensity map
+#: (``IntensityLikeVolumeWarning``) when it holds at least this many distinct non-zero
+#: values (count), and (next constant) its neighbouring voxels step gradually. A segmentation holds tens of labels; a probability map stored as
+#: 8-bit integers holds nearly all of 1..255 (the MNI ICBM152 2009a tissue maps do).
+LABEL_INTENSITY_MIN_DISTINCT: int = 64
+
+#: The second condition: the median absolute difference between face-neighbouring voxels
+#: that are both non-zero and differ is at most this fraction of the range of values
+#: (dimensionless). Neighbouring parcels of a segmentation carry unrelated codes (median
+#: step ~1/3 of the range for shuffled codes); a quantised probability map steps
+#: gradually (measured: MNI ICBM152 2009a white-matter map at 1 mm, median step 9 of 255
+#: = 0.035).
+LABEL_INTENSITY_MAX_NEIGHBOUR_STEP_FRACTION: float = 0.1
+
 # -- label volume -> genus-0 surface (shapedesc.mesh.topology, shapedesc.mesh.volume)
 #: Object adjacency of the digital-topology pair (26 -> pair (26, 6); 6 -> (6, 26)).
 #: (26, 6) is the pair under which thresholded anatomy has the fewer handles: 27 vs

@@ -24,6 +24,10 @@ class IllConditionedFitWarning(ShapedescWarning):
     """A least-squares harmonic fit was ill-conditioned and solved by eigen-decomposition."""
 
 
+class IntensityLikeVolumeWarning(ShapedescWarning):
+    """An integer volume read as labels looks like a quantised probability or intensity map."""
+
+
 class SurfaceFormatError(ValueError):
     """A file could not be read as a surface or volume (empty, truncated, corrupt, wrong format)."""
 

@@ -14,7 +14,7 @@ import pytest
 from nibabel.affines import apply_affine
 from nibabel.orientations import aff2axcodes
 
-from shapedesc.errors import InputTooLargeError, LabelError, SurfaceFormatError, VolumeFormatError
+from shapedesc.errors import IntensityLikeVolumeWarning, InputTooLargeError, LabelError, SurfaceFormatError, VolumeFormatError
 from shapedesc.io.volumes import LabelVolume, read_label_volume, voxel_to_world
 
 
@@ -113,7 +113,10 @@ def test_non_integer_data_refused(tmp_path):
 def test_template_read_and_probability_refused(template_dir, tmp_path):
     # real data: the MNI ICBM152 2009a white-matter map (stored as uint8 0..255)
     p = template_dir / "mni_icbm152_wm_tal_nlin_sym_09a_converted.nii.gz"
-    vol = read_label_volume(p)
+    # read as given, but flagged: 255 values stepping gradually between neighbours
+    with pytest.warns(IntensityLikeVolumeWarning, match=r"converted.nii.gz: 255 distinct .*Threshold"):
+        vol = read_label_volume(p)
+    assert "quantised" in vol.history[-1]
     ref = nib.load(str(p))  # nibabel as the reference reader
     assert vol.shape == ref.shape
     np.testing.assert_array_equal(vol.affine, ref.affine)
@@ -202,3 +205,22 @@ def test_gzip_bomb_volume_refused(tmp_path):
             fh.write(member)
     with pytest.raises(InputTooLargeError, match=r"bomb.nii.gz: the gzip stream inflates past"):
         read_label_volume(p, max_bytes=32 << 20)
+
+
+def test_many_label_parcellation_not_flagged(tmp_path):
+    # a parcellation of 343 blocks with shuffled codes (neighbouring parcels' codes are
+    # unrelated, as in any segmentation): many labels alone must not trigger the warning.
+    # Under the strict warnings filter of this suite an unexpected warning fails the test.
+    rng = np.random.default_rng(3)
+    codes = rng.permutation(np.arange(1, 344)).reshape(7, 7, 7)
+    data = np.kron(codes, np.ones((4, 4, 4), dtype=np.int64)).astype(np.int16)
+    vol = read_label_volume(_save(nib.Nifti1Image(data, np.eye(4)), tmp_path / "parc.nii.gz"))
+    assert len(vol.labels) == 343
+
+
+def test_smooth_integer_map_flagged(tmp_path):
+    # a smooth radial "probability" stored as uint8 0..200, steps of 0-2 between voxels
+    g = np.indices((40, 40, 40)).astype(float) - 19.5
+    data = np.clip(200 - 6 * np.sqrt((g ** 2).sum(axis=0)), 0, 200).round().astype(np.uint8)
+    with pytest.warns(IntensityLikeVolumeWarning, match="ramp.nii: .* distinct non-zero values"):
+        read_label_volume(_save(nib.Nifti1Image(data, np.eye(4)), tmp_path / "ramp.nii"))

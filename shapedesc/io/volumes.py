@@ -9,13 +9,14 @@ from __future__ import annotations
 
 import logging
 import os
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from shapedesc import defaults
-from shapedesc.errors import LabelError, SurfaceFormatError, VolumeFormatError
+from shapedesc.errors import IntensityLikeVolumeWarning, LabelError, SurfaceFormatError, VolumeFormatError
 from shapedesc.io._limits import read_bytes_limited
 
 logger = logging.getLogger(__name__)
@@ -211,6 +212,15 @@ def read_label_volume(path: str | os.PathLike, *,
                        f"{shape} -> {arr.shape})")
         logger.info("%s: squeezed a singleton 4th axis", path)
     arr = _as_labels(arr, path=path)
+    step = _intensity_like_step(arr)
+    if step is not None:
+        n_distinct, median_step = step
+        msg = (f"{path}: {n_distinct} distinct non-zero values whose neighbouring voxels "
+               f"differ by a median of only {median_step:g}: this looks like a probability or "
+               "intensity map stored as integers, not a segmentation. Threshold it into a "
+               "label image first; the values are used as labels as they are.")
+        warnings.warn(msg, IntensityLikeVolumeWarning, stacklevel=2)
+        history.append("warned: looks like a quantised probability/intensity map")
     affine = np.array(img.affine, dtype=np.float64)
     unit = img.header.get_xyzt_units()[0]
     scale = _UNIT_TO_MM.get(unit, 1.0)
@@ -218,6 +228,32 @@ def read_label_volume(path: str | os.PathLike, *,
         affine[:3, :] *= scale
         history.append(f"spatial unit '{unit}' converted to mm (x{scale:g})")
     return LabelVolume(data=arr, affine=affine, path=str(path), history=tuple(history))
+
+
+def _intensity_like_step(data: np.ndarray) -> tuple[int, float] | None:
+    """(distinct count, median neighbour step) when ``data`` looks like a smooth quantised map.
+
+    A segmentation has few labels and arbitrary codes across parcel borders; a probability
+    map stored as integers has many values that change gradually between neighbours
+    (thresholds ``defaults.LABEL_INTENSITY_*``). Returns None for a plausible label image.
+    """
+    present = _labels_present(data)
+    if len(present) < defaults.LABEL_INTENSITY_MIN_DISTINCT:
+        return None
+    steps = []
+    for axis in range(data.ndim):
+        a = np.moveaxis(data, axis, 0)
+        lo, hi = a[:-1], a[1:]
+        keep = (lo != 0) & (hi != 0) & (lo != hi)
+        steps.append(np.abs(lo[keep].astype(np.int64) - hi[keep].astype(np.int64)))
+    steps = np.concatenate(steps)
+    if steps.size == 0:
+        return None
+    median_step = float(np.median(steps))
+    span = present[-1] - present[0]
+    if median_step > defaults.LABEL_INTENSITY_MAX_NEIGHBOUR_STEP_FRACTION * span:
+        return None
+    return len(present), median_step
 
 
 def _as_labels(arr: np.ndarray, *, path: Path) -> np.ndarray:
