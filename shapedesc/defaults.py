@@ -79,8 +79,9 @@ MIN_SURFACE_VERTICES: int = 4
 
 #: An integer volume read as labels is flagged as a quantised probability/intensity map
 #: (``IntensityLikeVolumeWarning``) when it holds at least this many distinct non-zero
-#: values (count), and (next constant) its neighbouring voxels step gradually. A segmentation holds tens of labels; a probability map stored as
-#: 8-bit integers holds nearly all of 1..255 (the MNI ICBM152 2009a tissue maps do).
+#: values (count) and its neighbouring voxels step gradually (next constant). A
+#: segmentation holds tens of labels; a probability map stored as 8-bit integers holds
+#: nearly all of 1..255 (the MNI ICBM152 2009a tissue maps do).
 LABEL_INTENSITY_MIN_DISTINCT: int = 64
 
 #: The second condition: the median absolute difference between face-neighbouring voxels
