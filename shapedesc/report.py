@@ -510,7 +510,9 @@ def _stats_section(comp: CompareResults | None, dpi: _Output) -> str:
             corr = "p_fwer" if "p_fwer" in dt.columns else "q_fdr"
             out.append(_figure_or_note(
                 lambda: plot_effect_sizes(dt, correction=corr, alpha=DEFAULT_ALPHA),
-                f"Hedges' g by degree with its interval (g_ci_low … g_ci_high); filled "
+                f"Hedges' g by degree with its interval (g_ci_low … g_ci_high; raw group "
+                f"difference, covariates ignored — hedges_g_adjusted in the table is the "
+                f"covariate-adjusted one); filled "
                 f"markers and * : {corr} ≤ {DEFAULT_ALPHA:g} (degree_tests.tsv)", dpi,
                 "effect_sizes"))
     else:

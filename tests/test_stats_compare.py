@@ -8,6 +8,7 @@ import pytest
 
 from shapedesc.errors import StatsInputError
 from shapedesc.stats.compare import compare_spectra, log_energies, parse_degrees
+from shapedesc.stats.effect import hedges_g
 
 sm = pytest.importorskip("statsmodels.api")
 
@@ -95,3 +96,45 @@ def test_pointwise_stacked_synthesis_equals_per_subject_reconstruction():
     ref = normal_displacement(each, mean, vertex_normals(mean, vt.faces))
     np.testing.assert_allclose(vt.mean_vertices, mean, atol=1e-12)  # same sums, reordered
     np.testing.assert_allclose(vt.displacement, ref, atol=1e-12)
+
+
+def _two_groups_with_age(n=40, lmax=5, seed=4):
+    # the group effect at degree 3 is partly carried by age (older patients), so the
+    # raw and the covariate-adjusted effect sizes differ
+    rng = np.random.default_rng(seed)
+    grp = np.array(["ctl", "pat"])[np.arange(n) % 2]
+    age = rng.normal(65, 5, n) + 4.0 * (grp == "pat")
+    loge = -2.0 * np.log(np.arange(1, lmax + 1)) + rng.normal(0, 0.2, size=(n, lmax))
+    loge[:, 2] += 0.05 * (age - 65) + 0.2 * (grp == "pat")
+    t = pd.DataFrame({"subject": [f"s{i}" for i in range(n)], "structure": "caudate",
+                      "group": grp, "age": age})
+    for k in range(lmax):
+        t[f"l{k + 1}"] = np.exp(loge[:, k])
+    return t
+
+
+def test_adjusted_effect_size_matches_statsmodels_and_hedges_without_covariates():
+    t = _two_groups_with_age()
+    y = np.log(t[[f"l{k}" for k in range(2, 6)]].to_numpy())
+    pat = (t["group"] == "pat").to_numpy()
+    res = compare_spectra(t, group="group", levels=["ctl", "pat"], covariates=["age"],
+                          degrees="2-5", n_permutations=99, n_bootstrap=99,
+                          classification_permutations=9, rng=1)
+    dt = res.structures[0].degree_tests
+    # statsmodels OLS (outside source): group coefficient over sqrt(mse_resid), times
+    # Hedges' factor J = 1 - 3/(4 df - 1) with df = df_resid (Hedges 1981, eq. 6e)
+    x = sm.add_constant(np.column_stack([pat.astype(float), t["age"].to_numpy()]))
+    for j in range(y.shape[1]):
+        ols = sm.OLS(y[:, j], x).fit()
+        df = ols.df_resid
+        expected = (1 - 3 / (4 * df - 1)) * ols.params[1] / np.sqrt(ols.mse_resid)
+        # same quantity through two different linear-algebra routes: round-off only
+        assert dt["hedges_g_adjusted"].iloc[j] == pytest.approx(expected, rel=1e-9)
+    # the adjustment matters here: age carries part of the degree-3 difference
+    assert abs(dt["hedges_g_adjusted"].iloc[1] - dt["hedges_g"].iloc[1]) > 0.1
+    # without covariates the residual SD is the pooled SD: exactly Hedges' g
+    res0 = compare_spectra(t, group="group", levels=["ctl", "pat"], degrees="2-5",
+                           n_permutations=99, n_bootstrap=99, classification_permutations=9,
+                           rng=1)
+    dt0 = res0.structures[0].degree_tests
+    np.testing.assert_allclose(dt0["hedges_g_adjusted"], hedges_g(y[~pat], y[pat]), rtol=1e-10)

@@ -9,7 +9,11 @@ row per subject x structure, the manifest's columns, ``l1 .. lL`` normalised ene
    group and covariates; permutations then stay within sites (exchangeability blocks);
 4. per degree: OLS t (two levels) or F (more), Freedman–Lane permutation p, max-statistic
    FWER across the tested degrees, Benjamini–Hochberg q across them (on ``p_perm``), and
-   for two levels Hedges' g of the (harmonised) log energies with a bootstrap interval;
+   for two levels Hedges' g of the (harmonised) log energies with a bootstrap interval
+   (``hedges_g``: the raw two-group difference over the pooled SD, covariates ignored)
+   and the covariate-adjusted ``hedges_g_adjusted`` (the model's group estimate over the
+   residual SD of the full model, with Hedges' factor for the error degrees of freedom);
+   the two agree when there are no covariates;
 5. a global test across the tested degrees (Hotelling's T² / Pillai's trace, permutation p);
 6. cross-validated separability of the groups from the log energies (ROC AUC, permutation
    p) and a PCA shape space (of aligned coefficients when given, else of log energies).
@@ -47,6 +51,7 @@ __all__ = [
     "degree_columns",
     "log_energies",
     "compare_spectra",
+    "adjusted_effect_size",
     "pointwise_comparison",
 ]
 
@@ -192,6 +197,34 @@ def _fmt_degrees(degrees: Sequence[int]) -> str:
     if d == list(range(d[0], d[-1] + 1)):
         return f"{d[0]}-{d[-1]}" if len(d) > 1 else str(d[0])
     return ",".join(map(str, d))
+
+
+def adjusted_effect_size(estimate, residual_ss, df_error: int) -> np.ndarray:
+    """Covariate-adjusted standardised group difference, per response.
+
+    ``g_adj = J · b / s``, with ``b`` the group estimate of the linear model (adjusted for
+    the covariates), ``s = sqrt(RSS / df_error)`` the residual SD of the full model and
+    Hedges' factor ``J = 1 - 3 / (4 df_error - 1)``. With a group-only model
+    ``s`` is the pooled within-group SD and ``df_error = n1 + n2 - 2``, so this is
+    exactly Hedges' g (Hedges 1981, eq. 6e).
+
+    Parameters
+    ----------
+    estimate, residual_ss : array_like, shape (m,)
+        Group contrast estimate and residual sum of squares per response.
+    df_error : int
+        Residual degrees of freedom (> 1).
+
+    Returns
+    -------
+    ndarray, shape (m,)
+
+    References
+    ----------
+    Hedges LV (1981). *J Educ Stat* 6(2), 107–128. doi:10.3102/10769986006002107
+    """
+    j = 1.0 - 3.0 / (4.0 * df_error - 1.0)
+    return j * np.asarray(estimate, float) / np.sqrt(np.asarray(residual_ss, float) / df_error)
 
 
 def compare_spectra(
@@ -345,6 +378,8 @@ def _compare_structure(sub, name, gen, *, group, levels, covariates, categorical
         rows["hedges_g"] = es.g
         rows["g_ci_low"] = es.ci_low
         rows["g_ci_high"] = es.ci_high
+        rows["hedges_g_adjusted"] = adjusted_effect_size(fit.estimate[0], fit.residual_ss,
+                                                         fit.df2)
     f_equiv = perm.statistic**2 if perm.kind == "t" else perm.statistic
     rows["partial_eta2"] = f_equiv * perm.df1 / (f_equiv * perm.df1 + perm.df2)
     for i, lv in enumerate(design.levels):
