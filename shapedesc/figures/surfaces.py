@@ -476,7 +476,9 @@ def plot_surface_grid(rows, *, views=None, hemisphere: str = "left",
         cmap = matplotlib.colormaps[cmap]
     # One scale for every panel: the largest half-width over rows and views.
     centres = [v.mean(axis=0) for (v, _), _ in checked]
-    radius = 1.12 * max(float(np.max(np.abs(_project(v - c, view)[0])))
+    # 1.25: the shape ends 10 % of a panel from its edge, leaving room for the direction
+    # letters at 4 % so that they never sit on the surface
+    radius = 1.25 * max(float(np.max(np.abs(_project(v - c, view)[0])))
                         for ((v, _), _), c in zip(checked, centres) for view in views)
 
     with style.figure_style():
@@ -485,7 +487,7 @@ def plot_surface_grid(rows, *, views=None, hemisphere: str = "left",
         fig = style.new_figure(panel_size_in * len(views) + extra + 0.5, height)
         width_ratios = [1.0] * len(views) + ([0.07] if norm is not None else [])
         gs = fig.add_gridspec(len(rows), len(width_ratios), width_ratios=width_ratios,
-                              wspace=0.08, hspace=0.12,
+                              wspace=0.25, hspace=0.12,
                               top=1.0 - (0.45 if title else 0.2) / height, bottom=0.02)
         for i, ((v, f), r) in enumerate(checked):
             for j, view in enumerate(views):
