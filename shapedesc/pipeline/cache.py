@@ -4,8 +4,8 @@ Each finished item is one JSON file ``<OUTDIR>/.cache/<key[:2]>/<key>.json``, wr
 atomically (temporary file + rename, :mod:`shapedesc.io.atomic`), so after any
 interruption, even ``kill -9``, an entry is either complete or absent.  The key is the
 SHA-256 of the input file's content, the item (subject, structure, label), the run
-parameters and the package version: a changed input, option or version never reuses a
-stale result.  The entry holds the table rows as JSON numbers (exact round trip of
+parameters, the package version and :data:`CACHE_FORMAT`: a changed input, option or
+version never reuses a stale result.  The entry holds the table rows as JSON numbers (exact round trip of
 float64, Python's ``repr``) and the coefficient file's bytes, so the tables and
 ``coefficients/`` are rebuilt from the cache byte for byte.
 """
@@ -19,10 +19,13 @@ from pathlib import Path
 
 from shapedesc.io.atomic import write_text_atomic
 
-__all__ = ["sha256_file", "item_key", "ResultCache", "CACHE_DIRNAME"]
+__all__ = ["sha256_file", "item_key", "ResultCache", "CACHE_DIRNAME", "CACHE_FORMAT"]
 
 #: Name of the cache folder inside OUTDIR.
 CACHE_DIRNAME = ".cache"
+#: Version of what an entry holds, part of every key.  2: coefficients stored exactly as
+#: computed (format 1 rounded them to a 2^-40 relative grid) and per-stage timings.
+CACHE_FORMAT = 2
 _CHUNK = 1 << 20
 
 
@@ -40,7 +43,8 @@ def item_key(*, input_sha256: str, subject: str, structure: str, kind: str,
     """Cache key of one item: SHA-256 of a canonical JSON of everything that shapes its result."""
     blob = json.dumps({"input_sha256": input_sha256, "subject": subject,
                        "structure": structure, "kind": kind, "label": label,
-                       "parameters": parameters, "version": version},
+                       "parameters": parameters, "version": version,
+                       "cache_format": CACHE_FORMAT},
                       sort_keys=True, separators=(",", ":"))
     return hashlib.sha256(blob.encode("utf-8")).hexdigest()
 

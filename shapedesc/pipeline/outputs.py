@@ -11,14 +11,21 @@ Layout::
                                  flips, fit residuals, pose, repairs; ``volume_*`` from the
                                  label-volume surface report), warnings; no timings
       failures.tsv               subject, structure, input, stage, error
+      timings.tsv                subject, structure, status, CPU and wall seconds per stage
+                                 (read, surface, prepare, map, describe, write, total) and
+                                 the stages' own wall-clock splits; NOT reproducible
       coefficients/<subject>_<structure>.npz   (+ its metadata file, if separate)
       run.json                   parameters, versions, input SHA-256, counts
       .cache/                    per-item results for resuming (see pipeline.cache)
 
 Rows are sorted by (subject, structure); floats are written with
 :data:`~shapedesc.defaults.TABLE_FLOAT_DIGITS` significant digits, missing values as
-``n/a``; nothing in these files depends on the time, the number of workers or where the
-study lives, so a rerun writes the same bytes.
+``n/a``.  Except ``timings.tsv``, nothing in these files depends on the time, the
+number of workers, the executor or an interruption, so a rerun, a resumed run and a run
+on a cluster write the same bytes (on the same machine type and library versions; see
+:mod:`shapedesc.pipeline.work` for why).  ``timings.tsv`` holds, for items taken from
+the cache, the timings of the run that computed them.  Warnings in ``qc.tsv`` name
+input files by their full path.
 """
 
 from __future__ import annotations
@@ -35,9 +42,11 @@ from shapedesc.errors import OutputExistsError
 from shapedesc.io.atomic import write_bytes_atomic, write_text_atomic
 
 __all__ = ["format_value", "tsv_text", "write_tsv", "check_outdir", "dependency_versions",
-           "dataset_description", "TABLES", "RUN_JSON"]
+           "dataset_description", "TABLES", "UNREPRODUCIBLE", "RUN_JSON"]
 
-TABLES = ("spectra", "spectra_mm2", "shape", "qc", "failures")
+TABLES = ("spectra", "spectra_mm2", "shape", "qc", "failures", "timings")
+#: The one table whose bytes change from run to run.
+UNREPRODUCIBLE = ("timings.tsv",)
 RUN_JSON = "run.json"
 DESCRIPTION = "dataset_description.json"
 COEFFICIENTS = "coefficients"
@@ -229,4 +238,13 @@ def build_tables(items, entries: dict, failures: dict, extra_columns) -> dict:
                               "input": it.input_display, "stage": rec["stage"],
                               "error": rec["error"]})
     out["failures"] = (["subject", "structure", "input", "stage", "error"], fail_rows)
+    time_rows, data_rows = [], []
+    for it, key in items:
+        rec = entries.get(key) or failures.get(key)
+        if rec is None or not rec.get("timings"):
+            continue
+        data_rows.append(rec["timings"])
+        time_rows.append({**rec["timings"], "subject": it.subject, "structure": it.structure,
+                          "status": "ok" if key in entries else "failed"})
+    out["timings"] = (_columns(data_rows, ["subject", "structure", "status"]), time_rows)
     return out

@@ -6,36 +6,119 @@ types and bytes, so it pickles under the ``spawn`` start method and over the net
 and never raises for a bad input: a failure comes back as a record naming the stage.
 
 Stages: ``read`` (file to surface or label volume), ``surface`` (label volume to
-surface), ``prepare`` (validation and repair), ``describe`` (sphere map, expansion,
-descriptors), ``write`` (coefficient file).
+surface), ``prepare`` (validation and repair), ``map`` (sphere map), ``describe``
+(expansion, pose, descriptors: everything after the map), ``write`` (coefficient
+file bytes).  Each stage's CPU and wall-clock time come back in ``timings``
+(``timings.tsv``); they are the only part of a result that changes from run to run.
+
+Determinism: the same input gives the same bytes in any process because every BLAS and
+OpenMP pool runs one thread.  Thread count matters: a BLAS matrix product split over
+two threads adds its partial sums in another order, and the fit residuals then differ
+in the 10th significant digit.  The pools are capped *after* numpy and scipy are
+loaded (a library loaded later would escape the cap; :func:`compute_item` detects
+that and recomputes the item), and worker processes also get the thread variables in
+their environment before anything is imported.
 """
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
+import sys
 import tempfile
+import threading
+import time
 import traceback
 import warnings
 from pathlib import Path
 
-__all__ = ["compute_item", "init_worker", "STAGES"]
+__all__ = ["compute_item", "init_worker", "one_blas_thread", "STAGES", "TIMED_STAGES"]
 
-STAGES = ("hash", "read", "surface", "prepare", "describe", "write")
+#: Failure stages, in order (``hash`` happens in the parent before any work).
+STAGES = ("hash", "read", "surface", "prepare", "map", "describe", "write")
+#: Stages whose CPU and wall time ``timings`` reports.
+TIMED_STAGES = STAGES[1:]
 
 #: Environment variables that cap the thread pools of the BLAS/OpenMP libraries numpy
 #: and scipy may load; a worker is one process per core, so each gets one thread.
 _THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
                 "BLIS_NUM_THREADS", "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
 
+#: True in a process whose pools :func:`init_worker` capped for good (a local worker).
+_CAPPED_FOR_GOOD = False
+
+
+def _load_numeric_libraries() -> None:
+    """Import what loads a BLAS/LAPACK library (numpy's and scipy's own OpenBLAS), so a
+    thread cap set afterwards reaches them."""
+    import numpy  # noqa: F401
+    import scipy.linalg  # noqa: F401
+    import scipy.sparse.linalg  # noqa: F401
+
+
+def _pool_libraries() -> frozenset[str]:
+    from threadpoolctl import threadpool_info
+
+    return frozenset(str(i.get("filepath")) for i in threadpool_info())
+
+
+_CAP_LOCK = threading.Lock()
+_CAP = {"users": 0, "limiters": [], "modules": -1, "pools": frozenset(), "generation": 0}
+
+
+@contextlib.contextmanager
+def one_blas_thread():
+    """Cap every BLAS/OpenMP pool of this process at one thread while inside.
+
+    Re-entrant and thread-safe (a count of users: the first caps, the last restores), so
+    concurrent items on a multi-threaded Dask worker never lift each other's cap.
+    numpy's and scipy's libraries are loaded first so that the cap reaches them.
+    """
+    from threadpoolctl import threadpool_limits
+
+    with _CAP_LOCK:
+        if _CAP["users"] == 0:
+            _load_numeric_libraries()
+            _CAP["limiters"].append(threadpool_limits(limits=1))
+            _CAP["modules"], _CAP["pools"] = len(sys.modules), _pool_libraries()
+        _CAP["users"] += 1
+    try:
+        yield
+    finally:
+        with _CAP_LOCK:
+            _CAP["users"] -= 1
+            if _CAP["users"] == 0:
+                while _CAP["limiters"]:
+                    _CAP["limiters"].pop().restore_original_limits()
+
+
+def _cap_generation() -> int:
+    """Inside :func:`one_blas_thread`: how many times the cap was widened to a newly
+    loaded BLAS/OpenMP library (checked only when a module was imported meanwhile)."""
+    from threadpoolctl import threadpool_limits
+
+    with _CAP_LOCK:
+        if len(sys.modules) != _CAP["modules"]:
+            pools = _pool_libraries()
+            _CAP["modules"] = len(sys.modules)
+            if not pools <= _CAP["pools"]:
+                _CAP["limiters"].append(threadpool_limits(limits=1))
+                _CAP["pools"] |= pools
+                _CAP["generation"] += 1
+        return _CAP["generation"]
+
 
 def init_worker() -> None:
-    """Initialiser of a local worker process: one BLAS/OpenMP thread."""
+    """Initialiser of a local worker process: one BLAS/OpenMP thread for its lifetime."""
+    global _CAPPED_FOR_GOOD
     for var in _THREAD_VARS:
         os.environ[var] = "1"
+    _load_numeric_libraries()
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(limits=1)
+    _CAPPED_FOR_GOOD = True
 
 
 def _plain(value):
@@ -59,20 +142,85 @@ def _plain_row(row) -> dict:
 
 
 def _is_timing(column: str) -> bool:
-    """Timing columns (``seconds_total`` ...) change from run to run, so they stay out of
-    the tables, which must be byte-identical across reruns and executors."""
+    """Timing columns (``seconds_total`` ...) change from run to run: they go to
+    ``timings`` and stay out of the tables, which must be byte-identical across reruns
+    and executors."""
     return "seconds" in column.lower()
+
+
+def _split_timings(row: dict, prefix: str) -> tuple[dict, dict]:
+    """(the row without its timing columns, those columns named ``<prefix>_<column>``)."""
+    kept, timing = {}, {}
+    for k, v in _plain_row(row).items():
+        if _is_timing(k):
+            timing[f"{prefix}_{k}"] = v
+        else:
+            kept[k] = v
+    return kept, timing
 
 
 def _one_line(text: str) -> str:
     return " ".join(str(text).split())
 
 
-def _describe(task: dict) -> tuple[dict, dict[str, bytes], list[str]]:
+class _Clock:
+    """CPU (``time.process_time``) and wall (``time.perf_counter``) seconds per stage."""
+
+    def __init__(self):
+        self.seconds: dict[str, float] = {}
+        self._cpu0 = time.process_time()
+        self._wall0 = time.perf_counter()
+        self._stage = None
+
+    def start(self, stage: str) -> None:
+        now_cpu, now_wall = time.process_time(), time.perf_counter()
+        if self._stage is not None:
+            self._add(self._stage, now_cpu, now_wall)
+        self._stage, self._cpu, self._wall = stage, now_cpu, now_wall
+
+    def _add(self, stage, now_cpu, now_wall):
+        self.seconds[f"{stage}_cpu_s"] = self.seconds.get(f"{stage}_cpu_s", 0.0) + now_cpu - self._cpu
+        self.seconds[f"{stage}_wall_s"] = self.seconds.get(f"{stage}_wall_s", 0.0) + now_wall - self._wall
+
+    def stop(self) -> dict:
+        now_cpu, now_wall = time.process_time(), time.perf_counter()
+        if self._stage is not None:
+            self._add(self._stage, now_cpu, now_wall)
+            self._stage = None
+        out = {f"{s}_{kind}_s": self.seconds.get(f"{s}_{kind}_s", 0.0)
+               for s in TIMED_STAGES for kind in ("cpu", "wall")}
+        out["total_cpu_s"] = now_cpu - self._cpu0
+        out["total_wall_s"] = now_wall - self._wall0
+        return out
+
+
+class _StageError(Exception):
+    def __init__(self, stage: str, exc: BaseException):
+        super().__init__(stage)
+        self.stage = stage
+        self.exc = exc
+
+
+def _coefficient_files(desc) -> dict[str, bytes]:
+    """The coefficient file(s) describe writes, as bytes (suffix -> bytes)."""
+    files: dict[str, bytes] = {}
+    with tempfile.TemporaryDirectory(prefix="shapedesc-") as tmp:
+        desc.write_coefficients(Path(tmp) / "coefficients.npz")
+        for p in sorted(Path(tmp).iterdir()):
+            if p.is_file() and not p.name.startswith("."):
+                files[p.name[len("coefficients"):]] = p.read_bytes()
+    if not files:
+        raise RuntimeError("write_coefficients wrote no file")
+    return files
+
+
+def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
     """The computation proper; raises ``_StageError`` naming the stage that failed."""
     params = task["parameters"]
     stage = "read"
+    timing: dict = {}
     try:
+        clock.start("read")
         extra_qc: dict = {}
         if task["kind"] == "surface":
             from shapedesc.io.surfaces import read_surface
@@ -83,6 +231,7 @@ def _describe(task: dict) -> tuple[dict, dict[str, bytes], list[str]]:
 
             volume = read_label_volume(task["input"])
             stage = "surface"
+            clock.start("surface")
             from shapedesc.mesh.volume import label_to_surface
 
             kwargs = {}
@@ -91,81 +240,79 @@ def _describe(task: dict) -> tuple[dict, dict[str, bytes], list[str]]:
             if params.get("target_vertices") is not None:
                 kwargs["target_vertices"] = params["target_vertices"]
             surface, report = label_to_surface(volume, int(task["label"]), **kwargs)
-            extra_qc = {f"volume_{k}" if not str(k).startswith("volume_") else k: v
-                        for k, v in report.to_row().items()}
+            extra_qc, t = _split_timings(
+                {f"volume_{k}" if not str(k).startswith("volume_") else k: v
+                 for k, v in report.to_row().items()}, "surface")
+            timing.update(t)
         stage = "prepare"
+        clock.start("prepare")
         from shapedesc.mesh.repair import prepare_surface
 
         surface = prepare_surface(surface)
+        stage = "map"
+        clock.start("map")
+        from shapedesc.sphere import map_to_sphere
+
+        sphere_map = map_to_sphere(surface.vertices, surface.faces, source=surface.source)
         stage = "describe"
+        clock.start("describe")
         from shapedesc.descriptors import describe_surface
 
         desc = describe_surface(surface, degree=int(params["degree"]),
-                                scale=params["scale"], smoothing=float(params["smoothing"]))
-        qc = {k: v for k, v in _plain_row(desc.qc_row()).items() if not _is_timing(k)}
+                                scale=params["scale"], smoothing=float(params["smoothing"]),
+                                sphere_map=sphere_map)
+        qc, t = _split_timings(desc.qc_row(), "map")
+        timing.update(t)
+        timing.update({f"describe_seconds_{k}": float(v) for k, v in desc.seconds.items()
+                       if k != "map"})
         rows = {"spectra": _plain_row(desc.spectrum_row()),
                 "spectra_mm2": _plain_row(desc.spectrum_mm2_row()),
                 "shape": _plain_row(desc.shape_row()),
-                "qc": {**qc, **{k: v for k, v in _plain_row(extra_qc).items()
-                                if not _is_timing(k)}}}
+                "qc": {**qc, **extra_qc}}
         stage = "write"
-        files: dict[str, bytes] = {}
-        with tempfile.TemporaryDirectory(prefix="shapedesc-") as tmp:
-            desc.write_coefficients(Path(tmp) / "coefficients.npz")
-            _snap_coefficient_file(Path(tmp) / "coefficients.npz")
-            for p in sorted(Path(tmp).iterdir()):
-                if p.is_file() and not p.name.startswith("."):
-                    files[p.name[len("coefficients"):]] = p.read_bytes()
-        if not files:
-            raise RuntimeError("write_coefficients wrote no file")
-        return rows, files, []
+        clock.start("write")
+        files = _coefficient_files(desc)
+        return rows, files, timing
     except Exception as exc:  # noqa: BLE001 - one bad subject must not stop the study
         raise _StageError(stage, exc) from exc
 
 
-def _snap(values):
-    """Round an array to a power-of-two grid 2**-40 of its largest magnitude (~1e-12).
-
-    Floating-point results of the same computation can differ in the last bits between
-    processes (summation order in vectorised and BLAS kernels depends on memory
-    alignment, which depends on what ran before).  On this grid such noise no longer
-    changes a byte, except in the rare case of a value within noise of a grid
-    boundary, so coefficient files from any executor are identical.  1e-12 relative is
-    nine orders of magnitude below the fit residuals (common practice for reproducible
-    numeric outputs; the same idea as the tables' 12 significant digits).
-    """
-    import numpy as np
-
-    values = np.asarray(values, dtype=np.float64)
-    top = float(np.max(np.abs(values))) if values.size else 0.0
-    if not np.isfinite(top) or top == 0.0:
-        return values
-    q = 2.0 ** (np.floor(np.log2(top)) - 40)
-    return np.round(values / q) * q
-
-
-def _snap_coefficient_file(path: Path) -> None:
-    """Rewrite a coefficient file with snapped arrays (the package's own reader and
-    writer, same metadata)."""
-    try:
-        from shapedesc.descriptors import read_coefficients, write_coefficient_file
-    except ImportError:  # pragma: no cover - both are part of descriptors
-        return
-    rec = read_coefficients(path)
-    write_coefficient_file(path, native_values=_snap(rec.native_values),
-                           canonical_values=_snap(rec.values), metadata=rec.metadata,
-                           overwrite=True)
-
-
-class _StageError(Exception):
-    def __init__(self, stage: str, exc: BaseException):
-        super().__init__(stage)
-        self.stage = stage
-        self.exc = exc
+def _compute(task: dict) -> dict:
+    clock = _Clock()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            rows, files, detail = _describe(task, clock)
+        except _StageError as err:
+            exc = err.exc
+            timings = clock.stop()
+            return {"status": "failed", "key": task["key"], "stage": err.stage,
+                    "error": _one_line(f"{type(exc).__name__}: {exc}"),
+                    "cacheable": isinstance(exc, (ValueError, RuntimeError, ArithmeticError,
+                                                  LookupError))
+                    and not isinstance(exc, MemoryError),
+                    "traceback": "".join(traceback.format_exception(exc)),
+                    "warnings": [_one_line(f"{w.category.__name__}: {w.message}")
+                                 for w in caught],
+                    "timings": timings}
+    timings = {**clock.stop(), **detail}
+    messages = []
+    for w in caught:
+        line = _one_line(f"{w.category.__name__}: {w.message}")
+        if line not in messages:
+            messages.append(line)
+    rows["qc"]["warnings"] = " | ".join(messages) if messages else ""
+    for table in rows.values():
+        for k, v in table.items():
+            if isinstance(v, float) and math.isnan(v):
+                table[k] = None
+    return {"status": "ok", "key": task["key"], "rows": rows, "files": files,
+            "warnings": messages, "timings": timings}
 
 
 def compute_item(task: dict) -> dict:
-    """Describe one subject x structure; never raises for a bad input.
+    """Describe one subject x structure with one BLAS/OpenMP thread; never raises for a
+    bad input.
 
     Parameters
     ----------
@@ -178,38 +325,26 @@ def compute_item(task: dict) -> dict:
     Returns
     -------
     dict
-        ``status`` (``ok``/``failed``), ``key``, and for ``ok``: ``rows`` (``spectra``,
-        ``spectra_mm2``, ``shape``, ``qc`` dicts of built-in scalars) and ``files``
-        (coefficient file suffix -> bytes); for ``failed``: ``stage``, ``error``
-        (one line), ``cacheable`` (False for failures that may not recur, such as
-        running out of memory) and ``traceback``.  ``warnings``: messages of the
-        warnings raised while computing (also put in the QC row).
+        ``status`` (``ok``/``failed``), ``key``, ``timings`` (``<stage>_cpu_s``,
+        ``<stage>_wall_s`` for each of :data:`TIMED_STAGES`, ``total_cpu_s``,
+        ``total_wall_s``; for ``ok`` also the stages' own wall-clock timings
+        ``map_seconds_*``, ``describe_seconds_*``, ``surface_seconds_*``; seconds), and
+        for ``ok``: ``rows`` (``spectra``, ``spectra_mm2``, ``shape``, ``qc`` dicts of
+        built-in scalars) and ``files`` (coefficient file suffix -> bytes); for
+        ``failed``: ``stage``, ``error`` (one line), ``cacheable`` (False for failures
+        that may not recur, such as running out of memory) and ``traceback``.
+        ``warnings``: messages of the warnings raised while computing (also put in the
+        QC row).
     """
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=1), warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            rows, files, _ = _describe(task)
-        except _StageError as err:
-            exc = err.exc
-            return {"status": "failed", "key": task["key"], "stage": err.stage,
-                    "error": _one_line(f"{type(exc).__name__}: {exc}"),
-                    "cacheable": isinstance(exc, (ValueError, RuntimeError, ArithmeticError,
-                                                  LookupError))
-                    and not isinstance(exc, MemoryError),
-                    "traceback": "".join(traceback.format_exception(exc)),
-                    "warnings": [_one_line(f"{w.category.__name__}: {w.message}")
-                                 for w in caught]}
-    messages = []
-    for w in caught:
-        line = _one_line(f"{w.category.__name__}: {w.message}")
-        if line not in messages:
-            messages.append(line)
-    rows["qc"]["warnings"] = " | ".join(messages) if messages else ""
-    for table in rows.values():
-        for k, v in table.items():
-            if isinstance(v, float) and math.isnan(v):
-                table[k] = None
-    return {"status": "ok", "key": task["key"], "rows": rows, "files": files,
-            "warnings": messages}
+    if _CAPPED_FOR_GOOD:
+        return _compute(task)
+    with one_blas_thread():
+        for _ in range(3):
+            generation = _cap_generation()
+            result = _compute(task)
+            if _cap_generation() == generation:
+                break
+            # A BLAS/OpenMP library was first loaded while this item ran (here or in a
+            # concurrent one) and ran with its default thread count: compute again now
+            # that the cap reaches it.
+    return result
