@@ -213,7 +213,7 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     params = {"shear_weight": float(shear_weight), "iterations": int(res.iterations),
               "solver": ("multiresolution (icosphere grids) + L-BFGS with (L + eps M)^-1 "
                          "preconditioner, flip-rejecting Armijo backtracking"),
-              "ordering": f"SuperLU {SPHERE_LU_ORDERING}, diag_pivot_thresh 0", "puncture_face": conf.puncture_face,
+              "ordering": f"SuperLU {SPHERE_LU_ORDERING}, SymmetricMode, diag_pivot_thresh 0", "puncture_face": conf.puncture_face,
               "pole_correction_used": conf.pole_correction_used,
               "mobius_iterations": int(mob_it),
               "crowding_offset_edges": int(offset_used), "levels": list(res.levels), "source": source}
