@@ -36,7 +36,7 @@ from shapedesc.pipeline.outputs import (
     COEFFICIENTS, DESCRIPTION, RUN_JSON, build_tables, check_outdir, dataset_description,
     dependency_versions, write_coefficient_files, write_json, write_tsv,
 )
-from shapedesc.pipeline.work import compute_item, init_worker, one_blas_thread
+from shapedesc.pipeline.work import compute_item, import_chain, init_worker, one_blas_thread
 
 __all__ = ["DescribeParameters", "ProgressEvent", "StudyRun", "run_study", "exit_status"]
 
@@ -182,6 +182,10 @@ def _execute(tasks: list[dict], *, jobs: int, scheduler: str | None):
         return
     if jobs <= 1:
         with one_blas_thread():   # once for the whole run, not per item
+            try:
+                import_chain()
+            except ImportError:   # pragma: no cover - the items report it as failures
+                pass
             for task in tasks:
                 yield compute_item(task)
         return
