@@ -40,6 +40,23 @@ SH_FIT_CACHE_BYTES: int = 256 * 1024**2
 #: Gauss-Legendre grid; below it the direct n·K² accumulation is faster (measured,
 #: benchmarks/harmonics_fit.py: crossover near degree 20 on one core).
 SH_FIT_MOMENTS_MIN_DEGREE: int = 20
+#: Requested accuracy of ducc0's non-uniform (NUFFT-based) point transforms
+#: ``synthesis_general``/``adjoint_synthesis_general`` (relative; dimensionless). ducc0
+#: accepts > 2e-13 in double precision; measured error 6e-14..8e-14 relative to the largest
+#: coefficient at degrees 15-80 (tests/test_harmonics_fit.py), i.e. a few hundred eps.
+SH_NUFFT_EPSILON: float = 2.5e-13
+#: ``fit(method="cg")`` stops when every channel's normal-equation residual is below this
+#: fraction of its right-hand side (dimensionless). Coefficient error <= cond x this; the
+#: residual computed in float64 levels off near 1e-15 (measured on the sphere maps of
+#: benchmarks/describe.py), so 1e-13 is reached reliably and costs ~2 more iterations
+#: than 1e-12 (common practice: stop a few digits above the rounding floor).
+SH_FIT_CG_RTOL: float = 1e-13
+#: ``fit(method="cg")`` is used only when the rigorous bound max(rho)/min(rho) of the
+#: normal matrix's condition number (harmonics/pointsets.py) is at most this
+#: (dimensionless); CG then needs at most ~0.5 sqrt(cond) ln(2/rtol) ~ 150 iterations.
+#: Above it (or when rho is not positive everywhere) the exact direct/moments path runs.
+#: Area-corrected sphere maps of meshes give 1.1-1.3 (measured, benchmarks/describe.py).
+SH_FIT_CG_MAX_CONDITION: float = 100.0
 #: Normal equations whose Jacobi-scaled reciprocal condition number (LAPACK dpocon) is
 #: below this are solved by eigen-decomposition instead of Cholesky (dimensionless).
 #: Cholesky on normal equations loses ~cond·eps relative accuracy, so 1e-10 still leaves
@@ -219,11 +236,12 @@ SPHERE_MIN_REL_DET: float = 1e-12
 SPHERE_FLIP_DET: float = 0.0
 
 # --------------------------------------------------------------------------- descriptors
-#: Nearest face centroids examined per query in point-to-mesh distances (count).
-#: 8 makes the query exact on the near-uniform meshes used here (checked against a
-#: brute-force search in tests/test_mesh_distance.py; 16 changed mean distances on a
-#: 20,000-vertex tube by < 1e-7 mm at twice the cost).
-DISTANCE_CANDIDATE_FACES: int = 8
+#: Side of the uniform grid cells of the point-to-mesh distance, in median face
+#: bounding-box sizes (dimensionless). Speed only: the exactness certificate holds for
+#: any value (shapedesc/mesh/distance.py); larger cells mean more faces per cell, smaller
+#: ones more points whose distance ball crosses a cell boundary (measured,
+#: benchmarks/describe.py).
+DISTANCE_CELL_FACTOR: float = 1.0
 
 #: Scale normalisations offered for descriptors: none, cube root of the enclosed volume,
 #: square root of the surface area.

@@ -62,3 +62,18 @@ def test_bad_requests():
         correspondence_sphere(9)
     with pytest.raises(ValueError, match="rows"):
         reconstruct_values(c[:10], 4)
+
+
+@pytest.mark.parametrize("lmax", [15, 40])
+def test_fast_measurement_surface_matches_dense_reconstruction(lmax):
+    # describe measures fitted volume/area on a NUFFT-evaluated icosphere (ducc0
+    # synthesis_general); the reference is the dense basis of reconstruct_values.
+    from shapedesc.reconstruct import _measure_surface
+
+    rng = np.random.default_rng(lmax)
+    c = rng.normal(size=((lmax + 1) ** 2, 3)) + _sphere_coefficients(20.0, lmax)
+    v_ref, f_ref = reconstruct_values(c, lmax, level=5)
+    v, f = _measure_surface(c, lmax, 5)
+    np.testing.assert_array_equal(f, f_ref)
+    # 1e-12 relative: ducc0 is asked for SH_NUFFT_EPSILON = 2.5e-13 of the coefficients.
+    assert np.abs(v - v_ref).max() <= 1e-12 * np.abs(v_ref).max()

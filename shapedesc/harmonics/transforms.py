@@ -23,6 +23,7 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import ducc0
 import numpy as np
@@ -112,13 +113,16 @@ def _check_nphi(lmax: int, nphi) -> int:
     return nphi
 
 
+@lru_cache(maxsize=32)
 def _healpy_index(lmax: int):
-    """For every flat real index with m >= 0: its healpy-layout index."""
+    """For every flat real index with m >= 0: its healpy-layout index (cached, read-only)."""
     l = np.repeat(np.arange(lmax + 1), 2 * np.arange(lmax + 1) + 1)
     m = np.arange((lmax + 1) ** 2) - l * l - l
     sel = np.nonzero(m >= 0)[0]
     ls, ms = l[sel], m[sel]
     hp = ms * (2 * lmax + 1 - ms) // 2 + ls
+    for a in (sel, ls, ms, hp):
+        a.setflags(write=False)
     return sel, ls, ms, hp
 
 
