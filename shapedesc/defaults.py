@@ -289,8 +289,9 @@ SURFACE_DIFFUSE: float = 0.65
 
 # --------------------------------------------------------------------------- pipeline
 #: Significant digits of floats in the result tables (digits). Twelve keep far more than
-#: any descriptor's accuracy and hide last-bit noise, so reruns and parallel runs write
-#: byte-identical tables (common practice for reproducible text tables).
+#: any descriptor's accuracy (common practice for text tables). They do not by themselves
+#: make reruns byte-identical (a last-bit difference still flips the 12th digit now and
+#: then); that comes from a deterministic computation, see shapedesc.pipeline.work.
 TABLE_FLOAT_DIGITS: int = 12
 
 #: Text written for a missing value in a TSV table (the BIDS convention for n/a cells,

@@ -193,6 +193,11 @@ def test_timings_table_splits_each_item_by_stage(tmp_path):
         # 1e-3 s allowance is for that rounding, common practice)
         assert min(cpu) >= 0 and sum(cpu) <= float(r["total_cpu_s"]) + 1e-3
         assert float(r["total_wall_s"]) > 0
+    # wall-clock columns live here and nowhere in qc.tsv (which must be reproducible)
+    header = (out / "timings.tsv").read_text().splitlines()[0].split("\t")
+    assert any(c.startswith("map_seconds_") for c in header)
+    qc_header = (out / "qc.tsv").read_text().splitlines()[0].split("\t")
+    assert not [c for c in qc_header if "seconds" in c or c.endswith(("_cpu_s", "_wall_s"))]
     surf = next(r for r in rows if r["subject"] == "s00")
     assert float(surf["surface_cpu_s"]) == 0 and float(surf["map_cpu_s"]) > 0
     vol = next(r for r in rows if r["subject"] == "v01")
