@@ -234,10 +234,23 @@ class _FaceGrid:
 
 
 def _cell_size(lo: np.ndarray, hi: np.ndarray) -> float:
+    """Cell side (mm): ``DISTANCE_CELL_FACTOR`` median face boxes, enlarged when needed.
+
+    Enlarged (doubling) until the registrations number at most 16 per face, so a few
+    huge faces among tiny ones cannot blow up memory, and so that no axis has more than
+    2^20 cells (integer cell keys stay far inside int64).
+    """
+    whole = float((hi.max(axis=0) - lo.min(axis=0)).max())
     ext = float(np.median((hi - lo).max(axis=1)))
     if not ext > 0:
-        ext = float((hi.max(axis=0) - lo.min(axis=0)).max()) or 1.0
-    return defaults.DISTANCE_CELL_FACTOR * ext
+        ext = whole or 1.0
+    h = max(defaults.DISTANCE_CELL_FACTOR * ext, whole / 2**20, np.finfo(float).tiny)
+    budget = 16 * len(lo) + 1024
+    while True:
+        span = np.floor(hi / h) - np.floor(lo / h) + 1      # cells per axis of each box
+        if float(np.prod(span, axis=1).sum()) <= budget:
+            return h
+        h *= 2.0
 
 
 class _Mesh:
