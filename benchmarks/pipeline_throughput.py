@@ -320,6 +320,15 @@ def main(argv=None) -> int:
         out["n_vertices"] = n_vertices
         out["seconds_make_study"] = time.perf_counter() - t0
         manifest = read_manifest(manifest_path)
+        # Imports of one process, measured apart (a worker pays them once when it starts;
+        # in the runs below this process has them already).
+        from shapedesc.pipeline.work import import_chain, one_blas_thread
+
+        c0, w0 = time.process_time(), time.perf_counter()
+        with one_blas_thread():
+            import_chain()
+        out["imports_cpu_s"] = time.process_time() - c0
+        out["imports_wall_s"] = time.perf_counter() - w0
         print(f"pipeline throughput: {args.n} surfaces of {n_vertices} vertices, degree "
               f"{args.degree}, {os.cpu_count()} CPUs, package {out['package_path']}"
               + (f" (frozen copy of {snapshot.get('source')} at "
@@ -357,6 +366,8 @@ def main(argv=None) -> int:
     print(f"scaling 1 -> 2 workers (wall): {out['scaling_wall']:.2f}x (target >= 1.8x); "
           f"2 workers: {args.n} in {two['wall_s']:.1f} s (target <= 120 s for 200); CPU per "
           f"item with 2 workers / with 1: {out['cpu_per_item_ratio_2_vs_1']:.2f}")
+    print(f"imports of one process: {out['imports_cpu_s']:.2f} s CPU (paid once per worker; "
+          f"in the 2-worker overhead, not in the 1-worker one)")
     print(f"reproducible outputs differing, 2 workers vs 1: {out['differing_1_vs_2'] or 'none'}")
     if "kill" in out:
         print(f"killed after {out['kill']['seconds_to_kill']:.1f} s with "
