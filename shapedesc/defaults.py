@@ -219,14 +219,10 @@ SPHERE_MULTIRES_COARSE_ITER: int = 300
 #: Coarse faces hit by fewer fine face centroids than this take the sampled density
 #: instead of the binned area share (faces; binning is noisy below a few samples).
 SPHERE_MULTIRES_MIN_COUNT: int = 4
-#: SuperLU column ordering for the sphere-map factorisations (``permc_spec``); chosen
-#: by measurement in benchmarks/sphere_map.py (fill and time on the mesh matrices).
+#: SuperLU column ordering for the sphere-map factorisations (``permc_spec``), used with
+#: SuperLU's SymmetricMode; chosen by measurement in benchmarks/sphere_map.py (fill and
+#: time on the mesh matrices; see shapedesc/sphere/linsolve.py for the table).
 SPHERE_LU_ORDERING: str = "MMD_AT_PLUS_A"
-#: Outward offsets (in mean edge lengths) of the copies whose cotangent weights are tried,
-#: in order, when the centred conformal map is crowded below double precision (0 = the
-#: surface itself; shapedesc.sphere.crowding). Measured on the MNI left putamen: 0 fails,
-#: 1-4 give resolvable maps, 8 folds the offset copy too much.
-SPHERE_CROWDING_OFFSETS: tuple = (0, 2, 4, 1, 3, 6, 8, 12)
 #: The centred initial map is accepted when every face has det(a, b, c) above this
 #: fraction of the mean det (dimensionless): 1e-12 keeps ~4 significant digits of the
 #: smallest faces in double precision for the area correction to work with.
@@ -234,6 +230,17 @@ SPHERE_MIN_REL_DET: float = 1e-12
 #: A triangle counts as flipped when det(a, b, c) of its unit-sphere vertices is below
 #: this (unit-sphere volume units); 0 is the exact orientation test.
 SPHERE_FLIP_DET: float = 0.0
+#: Coarse-to-fine start (shapedesc/sphere/hierarchy.py), used when the conformal start is
+#: crowded: candidate vertex counts of the coarsest surface, the largest whose Tutte map
+#: is bijective and resolvable is used (count). Measured on the MNI WM hemisphere: the
+#: 500-vertex level folded one big face near the puncture, 1000 and 300 did not.
+SPHERE_HIERARCHY_COARSE_VERTICES: tuple = (1000, 500, 300, 200, 100)
+#: Area-correct an intermediate level whenever the vertex count has grown by this factor
+#: since the last correction (dimensionless).
+SPHERE_HIERARCHY_GROWTH: float = 1.6
+#: Area-correction iterations per intermediate level (the coarsest level gets ten times
+#: as many); a few suffice to even out the triangles the splits created.
+SPHERE_HIERARCHY_ITER: int = 30
 
 # --------------------------------------------------------------------------- descriptors
 #: Side of the uniform grid cells of the point-to-mesh distance, in median face
@@ -305,6 +312,11 @@ MAX_EXIT_FAILURES: int = 100
 
 #: Seconds between plain progress log lines when the output is not a terminal (s).
 PROGRESS_LOG_INTERVAL_S: float = 10.0
+
+#: How often a local worker process checks that the run that started it still lives (s);
+#: after a ``kill -9`` of the run its workers exit within about this long instead of
+#: waiting forever for work (common practice: a watchdog poll of the parent pid).
+WORKER_PARENT_POLL_S: float = 1.0
 
 #: Pattern a subject id or structure name must match: it becomes part of a file name
 #: (``coefficients/<subject>_<structure>.npz``), so no path separators or blanks.

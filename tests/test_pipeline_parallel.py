@@ -72,28 +72,50 @@ def test_two_local_workers_give_the_same_bytes_as_one(tmp_path):
     assert len(a) == 4 + 7 and a == b   # 4 coefficient files + 5 tables + 2 JSON
 
 
+def _group_alive(pgid: int) -> bool:
+    try:
+        os.killpg(pgid, 0)
+    except ProcessLookupError:
+        return False
+    return True
+
+
 def test_resume_after_kill_9_computes_only_the_rest(tmp_path):
+    """``kill -9`` of ``describe --jobs 2`` (the parent alone, as a user would): its
+    workers exit by themselves, and a rerun computes only the missing items and writes
+    the same bytes as an uninterrupted run."""
     n = 8
     manifest_path = _study(tmp_path / "study", n, bad=False)
     out = tmp_path / "out"
     proc = subprocess.Popen(
         [sys.executable, "-m", "shapedesc.cli.main", "-q", "describe", str(manifest_path),
-         "-o", str(out), "--degree", "6"],
+         "-o", str(out), "--degree", "6", "--jobs", "2"],
         # cwd outside the source tree: `python -m` puts the cwd first on sys.path, and the
         # source tree's shapedesc/ (without cli/, which is mapped in at install) would win
-        cwd=str(tmp_path), stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    cache = out / ".cache"
-    deadline = time.monotonic() + 120
-    while time.monotonic() < deadline and proc.poll() is None:
-        if cache.is_dir() and _entries(cache) >= 2:
-            break
-        time.sleep(0.01)
-    if proc.poll() is not None:
-        pytest.fail(f"describe ended (status {proc.returncode}) before it could be killed: "
-                    f"{proc.stderr.read().decode()[-2000:]}")
-    os.kill(proc.pid, signal.SIGKILL)
-    proc.wait()
-    proc.stderr.close()
+        cwd=str(tmp_path), stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
+        start_new_session=True)   # its own process group: the workers can be found
+    try:
+        cache = out / ".cache"
+        deadline = time.monotonic() + 120
+        while time.monotonic() < deadline and proc.poll() is None:
+            if cache.is_dir() and _entries(cache) >= 2:
+                break
+            time.sleep(0.01)
+        if proc.poll() is not None:
+            pytest.fail(f"describe ended (status {proc.returncode}) before it could be "
+                        f"killed: {proc.stderr.read().decode()[-2000:]}")
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
+        proc.stderr.close()
+        # the workers notice within WORKER_PARENT_POLL_S (1 s) once their item is done;
+        # 60 s leaves room for an item on a loaded machine
+        deadline = time.monotonic() + 60
+        while _group_alive(proc.pid) and time.monotonic() < deadline:
+            time.sleep(0.1)
+        assert not _group_alive(proc.pid), "worker processes outlived the killed run"
+    finally:
+        if _group_alive(proc.pid):
+            os.killpg(proc.pid, signal.SIGKILL)
     done_before = _entries(cache)
     assert 2 <= done_before < n
     assert not (out / "spectra.tsv").exists()      # tables are written at the end only

@@ -220,7 +220,8 @@ def _execute_local(tasks: list[dict], jobs: int):
     while pending:
         batch = pending[:1] if isolate else pending
         pool = ProcessPoolExecutor(max_workers=1 if isolate else min(jobs, len(batch)),
-                                   mp_context=ctx, initializer=init_worker)
+                                   mp_context=ctx, initializer=init_worker,
+                                   initargs=(os.getpid(),))
         broken: list[dict] = []
         try:
             futures = {pool.submit(compute_item, t): t for t in batch}

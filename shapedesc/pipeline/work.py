@@ -123,10 +123,25 @@ def import_chain() -> None:
     import shapedesc.sphere  # noqa: F401
 
 
-def init_worker() -> None:
+def _exit_with(parent_pid: int, interval: float) -> None:
+    """Body of a worker's watchdog thread: end the process once its parent is gone."""
+    while True:
+        time.sleep(interval)
+        if os.getppid() != parent_pid:
+            os._exit(1)
+
+
+def init_worker(parent_pid: int | None = None) -> None:
     """Initialiser of a local worker process: one BLAS/OpenMP thread for its lifetime,
-    and the item's modules imported."""
+    the item's modules imported, and (``parent_pid``) a watchdog thread that ends the
+    worker when that process dies (a ``kill -9`` of the run would otherwise leave its
+    workers waiting for work forever)."""
     global _CAPPED_FOR_GOOD
+    if parent_pid is not None:
+        from shapedesc.defaults import WORKER_PARENT_POLL_S
+
+        threading.Thread(target=_exit_with, args=(int(parent_pid), WORKER_PARENT_POLL_S),
+                         name="shapedesc-parent-watchdog", daemon=True).start()
     for var in _THREAD_VARS:
         os.environ[var] = "1"
     _load_numeric_libraries()

@@ -18,8 +18,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from ..defaults import (SPHERE_CROWDING_OFFSETS, SPHERE_LU_ORDERING, SPHERE_MIN_REL_DET,
-                        SPHERE_SHEAR_WEIGHT)
+from ..defaults import SPHERE_LU_ORDERING, SPHERE_MIN_REL_DET, SPHERE_SHEAR_WEIGHT
 from ..errors import ConvergenceError, SphereMapError
 from ..mesh.measures import vertex_areas
 from . import qc as _qc
@@ -28,7 +27,7 @@ from .conformal import conformal_sphere_map, sphere_face_det
 from .laplacian import clamped_cotangent_laplacian
 from .mobius import mobius_centre
 from .multires import correct_area_multires
-from .crowding import offset_copy
+from .hierarchy import coarse_to_fine_map
 from .topology import check_sphere_topology
 
 __all__ = ["SphereMap", "SphereMapQC", "map_to_sphere"]
@@ -44,8 +43,9 @@ class SphereMapQC:
         Faces with ``det(a, b, c) <= 0`` in the final map (0, or the map is refused).
     flips_per_stage : dict[str, int]
         Flipped faces after each stage: ``harmonic_plane``, ``stereographic``,
-        ``pole_correction`` (before its fallback), ``mobius``, ``area_correction`` (the
-        largest count over all accepted iterates), ``final``.
+        ``pole_correction`` (before its fallback), ``mobius``, ``refinement`` (see
+        ``initial_map``), ``area_correction`` (the largest count over all accepted
+        iterates), ``final``.
     area_log_sd, area_log_p01, area_log_p99 : float
         SD and 1st/99th percentiles over faces of log(sphere-area share / surface-area
         share) (natural log, dimensionless).
@@ -55,6 +55,12 @@ class SphereMapQC:
         Wall-clock time of the stages and of the whole call (s).
     iterations : int
         Area-correction iterations (all levels).
+    initial_map : str
+        Start of the area correction: ``"conformal"`` (the centred conformal map) or
+        ``"coarse-to-fine"`` (used when the conformal map is crowded below double
+        precision; :mod:`.hierarchy`). For the latter the first three stage counts are
+        those of the coarse surface's map and ``refinement`` counts the start map of the
+        full mesh; for the former ``refinement`` is 0.
     """
 
     n_flipped: int
@@ -68,6 +74,7 @@ class SphereMapQC:
     seconds_area: float
     seconds_total: float
     iterations: int
+    initial_map: str = "conformal"
 
     def to_row(self) -> dict:
         """Flat dict for a table: stage flip counts become ``flips_<stage>`` columns."""
@@ -97,9 +104,10 @@ class SphereMap:
         Mean absolute angle change (degrees) of the corners at each vertex (for figures).
     parameters : dict
         ``shear_weight``, ``iterations``, ``solver``, ``ordering``, ``puncture_face``,
-        ``pole_correction_used``, ``mobius_iterations``, ``crowding_offset_edges`` (offset,
-        in mean edge lengths, of the copy whose weights gave the initial map; 0 = the
-        surface itself; see :mod:`.crowding`), ``levels``, ``source``.
+        ``pole_correction_used``, ``mobius_iterations``, ``initial_map`` (as in the QC),
+        ``conformal_attempt`` (flip and collapsed-face counts of the conformal map, kept
+        or not), ``levels``, ``source``; with the coarse-to-fine start also
+        ``coarse_vertices``, ``refinement_rounds``, ``coarse_to_fine_iterations``.
     """
 
     sphere_vertices: np.ndarray
@@ -159,25 +167,30 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     vn = (v - v.mean(axis=0)) / np.sqrt(np.mean(np.sum((v - v.mean(axis=0)) ** 2, axis=1)))
 
     va = vertex_areas(vn, f)
-    offset_used = 0
-    t_centre = 0.0
-    for lam in SPHERE_CROWDING_OFFSETS:
-        weights_from = offset_copy(vn, f, lam)
-        conf = conformal_sphere_map(vn, f, source=source, weight_vertices=weights_from)
-        tc = time.perf_counter()
-        x, mob_it = mobius_centre(conf.sphere_vertices, va, what=f"{source}: Möbius centring")
-        t_centre += time.perf_counter() - tc
-        det = sphere_face_det(x, f)
-        if (conf.flips_planar == 0 and conf.flips_projected == 0
-                and det.min() > SPHERE_MIN_REL_DET * det.mean()):
-            offset_used = lam
-            break
-    else:
-        raise ConvergenceError(
-            f"{source}: conformal map (crowding): even the map with the weights of an offset "
-            f"copy ({SPHERE_CROWDING_OFFSETS[-1]} edge lengths) has {int((det <= 0).sum())} faces "
-            "collapsed below double precision; the surface may have extremely thin parts — "
-            "check the segmentation")
+    conf = conformal_sphere_map(vn, f, source=source)
+    tc = time.perf_counter()
+    x, mob_it = mobius_centre(conf.sphere_vertices, va, what=f"{source}: Möbius centring")
+    t_centre = time.perf_counter() - tc
+    det = sphere_face_det(x, f)
+    stage_flips = {"harmonic_plane": conf.flips_planar, "stereographic": conf.flips_projected,
+                   "pole_correction": conf.flips_corrected}
+    attempt = {"flips_planar": int(conf.flips_planar), "flips_projected": int(conf.flips_projected),
+               "collapsed_faces": int(np.sum(det <= SPHERE_MIN_REL_DET * det.mean()))}
+    crowded = (conf.flips_planar != 0 or conf.flips_projected != 0
+               or det.min() <= SPHERE_MIN_REL_DET * det.mean())
+    initial = "conformal"
+    refine_flips = 0
+    if crowded:
+        # the conformal map crowds below double precision: switch, once, to the
+        # coarse-to-fine start (see .hierarchy for why no other harmonic map would do)
+        initial = "coarse-to-fine"
+        hs = coarse_to_fine_map(vn, f, shear_weight=shear_weight, what=source)
+        x = hs.sphere_vertices
+        mob_it = 0
+        stage_flips = {"harmonic_plane": hs.coarse_flips_planar,
+                       "stereographic": hs.coarse_flips_projected,
+                       "pole_correction": hs.coarse_flips_corrected}
+        refine_flips = _qc.count_flipped(x, f)
     flips_mobius = _qc.count_flipped(x, f)
     t2 = time.perf_counter()
     t1 = t2 - t_centre
@@ -201,20 +214,23 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     va_o = vertex_areas(vn, f)
     v_lr = np.log((va_s / va_s.sum()) / (va_o / va_o.sum()))
     t4 = time.perf_counter()
-    stages = {"harmonic_plane": conf.flips_planar, "stereographic": conf.flips_projected,
-              "pole_correction": conf.flips_corrected, "mobius": flips_mobius,
+    stages = {**stage_flips, "mobius": flips_mobius, "refinement": refine_flips,
               "area_correction": res.n_flipped_max, "final": n_flip}
     qc = SphereMapQC(
         n_flipped=n_flip, flips_per_stage=stages, area_log_sd=float(np.std(lr)),
         area_log_p01=float(np.percentile(lr, 1)), area_log_p99=float(np.percentile(lr, 99)),
         angle_distortion_mean_deg=float(ang.mean()), seconds_conformal=t1 - t0,
         seconds_centring=t2 - t1, seconds_area=t3 - t2, seconds_total=t4 - t0,
-        iterations=int(res.iterations))
+        iterations=int(res.iterations), initial_map=initial)
     params = {"shear_weight": float(shear_weight), "iterations": int(res.iterations),
               "solver": ("multiresolution (icosphere grids) + L-BFGS with (L + eps M)^-1 "
                          "preconditioner, flip-rejecting Armijo backtracking"),
               "ordering": f"SuperLU {SPHERE_LU_ORDERING}, SymmetricMode, diag_pivot_thresh 0", "puncture_face": conf.puncture_face,
               "pole_correction_used": conf.pole_correction_used,
               "mobius_iterations": int(mob_it),
-              "crowding_offset_edges": int(offset_used), "levels": list(res.levels), "source": source}
+              "initial_map": initial, "conformal_attempt": attempt,
+              "levels": list(res.levels), "source": source}
+    if crowded:
+        params.update(coarse_vertices=int(hs.coarse_vertices), refinement_rounds=int(hs.rounds),
+                      coarse_to_fine_iterations=int(hs.iterations))
     return SphereMap(xs, f, qc, lr, v_lr, _qc.vertex_mean(f, ang, len(v)), params)
