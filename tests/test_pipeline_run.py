@@ -208,6 +208,26 @@ def test_timings_table_splits_each_item_by_stage(tmp_path):
     assert (out / "timings.tsv").read_bytes() == before
 
 
+def test_outputs_do_not_depend_on_where_the_study_lives(tmp_path):
+    import shutil
+
+    make_study(tmp_path / "a" / "study", n=2)
+    shutil.copytree(tmp_path / "a" / "study", tmp_path / "b" / "deeper" / "study")
+    for where in ("a", "b/deeper"):
+        run_study(read_manifest(tmp_path / where / "study" / "manifest.tsv"),
+                  tmp_path / where / "out", parameters=PARAMS)
+    a, b = _tables(tmp_path / "a" / "out"), _tables(tmp_path / "b" / "deeper" / "out")
+    assert a == b
+    # messages name the input as the manifest wrote it (the error message would
+    # otherwise hold the absolute path), also inside the coefficient files
+    error = _read_tsv(tmp_path / "a" / "out" / "failures.tsv")[0]["error"]
+    assert "surf/x_corrupt.surf.gii" in error and str(tmp_path) not in error
+    from shapedesc.descriptors import read_coefficients
+
+    rec = read_coefficients(tmp_path / "a" / "out" / "coefficients" / "v01_bean.npz")
+    assert rec.metadata["source"] == "vol/v01.nii.gz#label=2"
+
+
 def test_refusals(tmp_path):
     manifest = read_manifest(make_study(tmp_path / "study", n=2, bad=False))
     out = tmp_path / "out"

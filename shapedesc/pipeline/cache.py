@@ -24,8 +24,9 @@ __all__ = ["sha256_file", "item_key", "ResultCache", "CACHE_DIRNAME", "CACHE_FOR
 #: Name of the cache folder inside OUTDIR.
 CACHE_DIRNAME = ".cache"
 #: Version of what an entry holds, part of every key.  2: coefficients stored exactly as
-#: computed (format 1 rounded them to a 2^-40 relative grid) and per-stage timings.
-CACHE_FORMAT = 2
+#: computed (format 1 rounded them to a 2^-40 relative grid) and per-stage timings;
+#: 3: inputs named as the user gave them in messages and coefficient files.
+CACHE_FORMAT = 3
 _CHUNK = 1 << 20
 
 

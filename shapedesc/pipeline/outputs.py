@@ -23,9 +23,10 @@ Rows are sorted by (subject, structure); floats are written with
 ``n/a``.  Except ``timings.tsv``, nothing in these files depends on the time, the
 number of workers, the executor or an interruption, so a rerun, a resumed run and a run
 on a cluster write the same bytes (on the same machine type and library versions; see
-:mod:`shapedesc.pipeline.work` for why).  ``timings.tsv`` holds, for items taken from
-the cache, the timings of the run that computed them.  Warnings in ``qc.tsv`` name
-input files by their full path.
+:mod:`shapedesc.pipeline.work` for why), wherever the study is mounted: messages, table
+cells and the coefficient files' ``source`` name each input as the manifest (or the
+command line) wrote it.  ``timings.tsv`` holds, for items taken from the cache, the
+timings of the run that computed them.
 """
 
 from __future__ import annotations

@@ -379,8 +379,8 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
                 failures[key] = entry
             continue
         tasks.append({"key": key, "subject": it.subject, "structure": it.structure,
-                      "input": it.input, "kind": it.kind, "label": it.label,
-                      "parameters": params})
+                      "input": it.input, "display": it.input_display, "kind": it.kind,
+                      "label": it.label, "parameters": params})
     total = len(keyed)
     done = total - len(tasks)
     n_cached = done - sum(1 for k in failures if k.startswith("unhashed:"))

@@ -23,6 +23,7 @@ their environment before anything is imported.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import math
 import os
 import sys
@@ -283,6 +284,11 @@ def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
         from shapedesc.mesh.repair import prepare_surface
 
         surface = prepare_surface(surface)
+        display = task.get("display")
+        if display and task["input"] in surface.source:
+            # the coefficient file records the source: name the input as the user did
+            surface = dataclasses.replace(
+                surface, source=surface.source.replace(task["input"], display))
         stage = "map"
         clock.start("map")
         from shapedesc.sphere import map_to_sphere
@@ -311,8 +317,18 @@ def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
         raise _StageError(stage, exc) from exc
 
 
+def _relocated(task: dict):
+    """A function that writes the input's absolute path as the user gave it (``display``),
+    so that messages in the tables do not depend on where the study is mounted."""
+    display = task.get("display")
+    if not display or display == task["input"]:
+        return _one_line
+    return lambda text: _one_line(str(text).replace(task["input"], display))
+
+
 def _compute(task: dict) -> dict:
     clock = _Clock()
+    line_of = _relocated(task)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
@@ -321,18 +337,18 @@ def _compute(task: dict) -> dict:
             exc = err.exc
             timings = clock.stop()
             return {"status": "failed", "key": task["key"], "stage": err.stage,
-                    "error": _one_line(f"{type(exc).__name__}: {exc}"),
+                    "error": line_of(f"{type(exc).__name__}: {exc}"),
                     "cacheable": isinstance(exc, (ValueError, RuntimeError, ArithmeticError,
                                                   LookupError))
                     and not isinstance(exc, MemoryError),
                     "traceback": "".join(traceback.format_exception(exc)),
-                    "warnings": [_one_line(f"{w.category.__name__}: {w.message}")
+                    "warnings": [line_of(f"{w.category.__name__}: {w.message}")
                                  for w in caught],
                     "timings": timings}
     timings = {**clock.stop(), **detail}
     messages = []
     for w in caught:
-        line = _one_line(f"{w.category.__name__}: {w.message}")
+        line = line_of(f"{w.category.__name__}: {w.message}")
         if line not in messages:
             messages.append(line)
     rows["qc"]["warnings"] = " | ".join(messages) if messages else ""
@@ -340,6 +356,8 @@ def _compute(task: dict) -> dict:
         for k, v in table.items():
             if isinstance(v, float) and math.isnan(v):
                 table[k] = None
+            elif isinstance(v, str) and task["input"] in v:
+                table[k] = line_of(v)
     return {"status": "ok", "key": task["key"], "rows": rows, "files": files,
             "warnings": messages, "timings": timings}
 
@@ -351,7 +369,9 @@ def compute_item(task: dict) -> dict:
     Parameters
     ----------
     task : dict
-        ``key``, ``subject``, ``structure``, ``input`` (absolute path), ``kind``
+        ``key``, ``subject``, ``structure``, ``input`` (absolute path), optional
+        ``display`` (the path as the user wrote it, used in place of ``input`` in
+        messages, table cells and the coefficient file's source), ``kind``
         (``surface``/``volume``), ``label`` (int or None), ``parameters`` (dict with
         ``degree``, ``scale``, ``smoothing`` and optional ``volume_smoothing_iterations``,
         ``target_vertices``).
