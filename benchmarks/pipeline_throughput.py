@@ -361,11 +361,21 @@ def main(argv=None) -> int:
     # What the scaling would be if both workers had a core each: CPU per item as
     # measured in each run (contention for caches/memory shows as a higher CPU per item).
     out["cpu_per_item_ratio_2_vs_1"] = two["stages"]["total_cpu_s"] / one["stages"]["total_cpu_s"]
+    # A projection, not a measurement: the wall time each run would take if its workers
+    # had a core each and nothing else ran (its total CPU over its worker count).
+    for r in runs.values():
+        r["projected_wall_s_own_cores"] = r["cpu_total_s"] / r["jobs"]
+    out["projected_scaling_own_cores"] = (one["projected_wall_s_own_cores"]
+                                          / two["projected_wall_s_own_cores"])
 
     _print_runs(runs)
     print(f"scaling 1 -> 2 workers (wall): {out['scaling_wall']:.2f}x (target >= 1.8x); "
           f"2 workers: {args.n} in {two['wall_s']:.1f} s (target <= 120 s for 200); CPU per "
           f"item with 2 workers / with 1: {out['cpu_per_item_ratio_2_vs_1']:.2f}")
+    print(f"projection if each worker had a core to itself (total CPU / workers): 1 worker "
+          f"{one['projected_wall_s_own_cores']:.1f} s, 2 workers "
+          f"{two['projected_wall_s_own_cores']:.1f} s, scaling "
+          f"{out['projected_scaling_own_cores']:.2f}x")
     print(f"imports of one process: {out['imports_cpu_s']:.2f} s CPU (paid once per worker; "
           f"in the 2-worker overhead, not in the 1-worker one)")
     print(f"reproducible outputs differing, 2 workers vs 1: {out['differing_1_vs_2'] or 'none'}")
