@@ -1,0 +1,58 @@
+"""Coarse-to-fine start (shapedesc.sphere.hierarchy) and the crowding fallback of map_to_sphere."""
+
+from __future__ import annotations
+
+import numpy as np
+import trimesh
+
+from shapedesc.shapes import bent_tube, ellipsoid
+from shapedesc.sphere import map_to_sphere
+from shapedesc.sphere.conformal import sphere_face_det
+from shapedesc.sphere.hierarchy import _collapse_round, _compact, _face_quadrics, coarse_to_fine_map
+
+
+def test_collapse_rounds_keep_a_closed_genus0_manifold():
+    v, f = bent_tube(6, 1, np.pi / 2, 3)
+    q = _face_quadrics(v, f)
+    g, n = f, len(v)
+    while n > 60:
+        g_new, a, b = _collapse_round(v, g, q, n - 60)
+        assert len(a) > 0
+        np.add.at(q, a, q[b])
+        g, n = g_new, n - len(a)
+        ids, gc = _compact(g, len(v))
+        m = trimesh.Trimesh(v[ids], gc, process=False)
+        # trimesh's own checks: closed, consistently wound, Euler characteristic 2
+        assert m.is_watertight and m.is_winding_consistent and m.euler_number == 2
+        assert len(ids) == n
+
+
+def test_coarse_to_fine_start_is_bijective():
+    v, f = bent_tube(6, 1, np.pi / 2, 4)
+    h = coarse_to_fine_map(v, f, shear_weight=0.12, what="tube", coarse_vertices=(200, 100))
+    x = h.sphere_vertices
+    assert h.coarse_vertices <= 200 and h.rounds > 0
+    assert sphere_face_det(x, f).min() > 0  # every face positively oriented
+    # degree one: signed solid angles (Van Oosterom & Strackee 1983) sum to 4π
+    a, b, c = (x[f[:, k]] for k in range(3))
+    omega = 2 * np.arctan2(np.einsum("ij,ij->i", a, np.cross(b, c)),
+                           1 + (a * b).sum(1) + (b * c).sum(1) + (c * a).sum(1))
+    np.testing.assert_allclose(omega.sum(), 4 * np.pi, rtol=1e-10)  # round-off only
+    # deterministic bit for bit
+    h2 = coarse_to_fine_map(v.copy(), f.copy(), shear_weight=0.12, what="tube",
+                            coarse_vertices=(200, 100))
+    assert np.array_equal(h2.sphere_vertices, x)
+
+
+def test_crowded_conformal_map_switches_to_coarse_to_fine():
+    # a 30:1 ellipsoid: its conformal map compresses the ends by ~exp(−π·30/2) (conformal
+    # crowding, Driscoll & Trefethen 2002 §2.6), far below double precision
+    v, f = ellipsoid(30, 1, 1, 3)
+    m = map_to_sphere(v, f, source="needle.obj")
+    assert m.parameters["conformal_attempt"]["collapsed_faces"] > 0  # the fallback was needed
+    assert m.qc.initial_map == "coarse-to-fine" == m.parameters["initial_map"]
+    assert max(m.qc.flips_per_stage.values()) == 0, m.qc.flips_per_stage
+    tm = trimesh.Trimesh(m.sphere_vertices, f, process=False)
+    assert tm.is_winding_consistent and tm.volume > 0  # trimesh: outward, consistent
+    # far from the conformal map's e^-47: the area correction works from the start
+    assert m.qc.area_log_p01 > -1.5
