@@ -136,6 +136,19 @@ def _cpu() -> tuple[float, float]:
     return s.ru_utime + s.ru_stime, c.ru_utime + c.ru_stime
 
 
+def _machine() -> dict | None:
+    """CPU time of the whole machine from /proc/stat (Linux): busy, idle and steal (time
+    the hypervisor gave this virtual machine's CPUs to others), in seconds; None elsewhere."""
+    try:
+        fields = [int(x) for x in Path("/proc/stat").read_text().split("\n")[0].split()[1:]]
+    except (OSError, ValueError):
+        return None
+    tick = os.sysconf("SC_CLK_TCK")
+    user, nice, system, idle, iowait, irq, softirq, steal = (fields + [0] * 8)[:8]
+    return {"busy_s": (user + nice + system + irq + softirq) / tick,
+            "idle_s": (idle + iowait) / tick, "steal_s": steal / tick}
+
+
 def _stage_split(outdir: Path, names: set[str] | None = None) -> dict:
     """Mean CPU and wall seconds per item by stage, from timings.tsv (ok items; only
     ``names`` when given)."""
@@ -163,12 +176,14 @@ def _timed_run(manifest, outdir: Path, jobs: int, degree: int) -> dict:
             computed.append(ev.name)
 
     load0 = os.getloadavg()
+    m0 = _machine()
     self0, child0 = _cpu()
     t0 = time.perf_counter()
     res = run_study(manifest, outdir, parameters=DescribeParameters(degree=degree), jobs=jobs,
                     progress=progress)
     wall = time.perf_counter() - t0
     self1, child1 = _cpu()
+    m1 = _machine()
     split = _stage_split(outdir, set(computed))
     cpu_total = (self1 - self0) + (child1 - child0)
     n = max(res.n_computed, 1)
@@ -178,7 +193,9 @@ def _timed_run(manifest, outdir: Path, jobs: int, degree: int) -> dict:
             "computed_names": sorted(computed), "stages": split,
             "overhead_cpu_s_per_item": (cpu_total - split["item_cpu_s_sum"]) / n,
             "items_per_s": res.n_computed / wall if wall else 0.0,
-            "load_before": load0, "load_after": os.getloadavg()}
+            "load_before": load0, "load_after": os.getloadavg(),
+            # CPU seconds the whole machine spent during the run, ours included
+            "machine": {k: m1[k] - m0[k] for k in m0} if m0 and m1 else None}
 
 
 def _kill_at_half(manifest_path: Path, outdir: Path, n: int, jobs: int, degree: int) -> dict:
@@ -376,6 +393,12 @@ def main(argv=None) -> int:
           f"{one['projected_wall_s_own_cores']:.1f} s, 2 workers "
           f"{two['projected_wall_s_own_cores']:.1f} s, scaling "
           f"{out['projected_scaling_own_cores']:.2f}x")
+    for name, r in runs.items():
+        m = r.get("machine")
+        if m:
+            print(f"machine during {name}: {m['busy_s']:.1f} s CPU busy (this run "
+                  f"{r['cpu_total_s']:.1f} s, so others {max(m['busy_s'] - r['cpu_total_s'], 0):.1f}"
+                  f" s), {m['idle_s']:.1f} s idle, {m['steal_s']:.1f} s stolen by the hypervisor")
     print(f"imports of one process: {out['imports_cpu_s']:.2f} s CPU (paid once per worker; "
           f"in the 2-worker overhead, not in the 1-worker one)")
     print(f"reproducible outputs differing, 2 workers vs 1: {out['differing_1_vs_2'] or 'none'}")
