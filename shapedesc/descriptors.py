@@ -290,8 +290,8 @@ def describe_surface(surface: Surface, *, degree: int = defaults.DEFAULT_DEGREE,
     every input vertex to the fitted surface (the fit evaluated at the input's own sphere
     positions, with the input's faces) and the exact vertex-sampled symmetric Hausdorff
     distance (``shapedesc.mesh.distance.corresponding_mesh_distances``).  Measured on one
-    core (benchmarks/describe.py): ~0.2 s at 10,000 vertices / L = 15, ~0.35 s at 20,000
-    / L = 15, ~2 s at 160,000 / L = 40.
+    core (benchmarks/describe.py, CPU time): ~0.12 s at 10,000 vertices / L = 15, ~0.21 s
+    at 20,000 / L = 15, ~1.7 s at 160,000 / L = 40 (coefficient file writing included).
     """
     from shapedesc.harmonics import SHCoefficients, fit
 

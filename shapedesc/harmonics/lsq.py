@@ -24,9 +24,9 @@ equations with G applied by two grid transforms on the degree-2L Gauss–Legendr
 cond(G) <= ρ_max/ρ_min; CG is used only when that bound is at most
 ``defaults.SH_FIT_CG_MAX_CONDITION`` (area-weighted, area-corrected sphere maps give
 1.1–1.3, so CG stops after ~10–25 iterations), otherwise the exact direct/moments path
-runs.  Cost at 160,000 points, degree 40: ~0.15 s instead of ~7 s; coefficients agree
-with the direct Cholesky solve to ~1e-14 relative (tests/test_harmonics_fit.py,
-benchmarks/describe.py).
+runs.  Cost at 150,000-160,000 points, degree 40: ~0.2 s instead of ~7 s (one core);
+coefficients agree with the exact Cholesky solve to ~1e-14 relative
+(tests/test_harmonics_fit.py, benchmarks/harmonics_fit.py, benchmarks/describe.py).
 
 Accuracy (measured, tests/test_harmonics_fit.py): band-limited random functions
 (coefficients ~N(0, 1)) at 10,000 uniform random points are recovered to ~1e-14
@@ -50,7 +50,11 @@ References
    systems", J. Res. Natl. Bur. Stand. 49 (1952) 409–436, doi:10.6028/jres.049.044
    (CG; error after k steps <= 2((√κ−1)/(√κ+1))^k in the energy norm).
 .. [5] M. Reinecke, S. Belkner, J. Carron, "Improved cosmological fast spherical harmonic
-   transforms", A&A 678 (2023) A165, doi:10.1051/0004-6361/202346717 (ducc0.sht).
+   transforms", A&A 678 (2023) A165, doi:10.1051/0004-6361/202346717 (ducc0.sht, its
+   NUFFT-based ``*_general`` point transforms).
+.. [6] M. Reinecke, D. S. Seljebotn, "Libsharp – spherical harmonic transforms
+   revisited", A&A 554 (2013) A112, doi:10.1051/0004-6361/201321494 (the ring-based
+   Legendre transforms behind ducc0's grid and one-ring-per-point transforms).
 """
 
 from __future__ import annotations
