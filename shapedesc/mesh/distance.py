@@ -473,7 +473,7 @@ def corresponding_mesh_distances(vertices_a: np.ndarray, vertices_b: np.ndarray,
     lo = np.minimum(ma.lo, mb.lo)
     hi = np.maximum(ma.hi, mb.hi)
     grid = _FaceGrid(lo, hi, _cell_size(lo, hi))      # valid for the faces of both meshes
-    margin = _margin(va, vb)
+    margin = _margin(lo, hi)                           # the boxes hold every vertex
     # |a_i - b_i| bounds both d(a_i, B) and d(b_i, A): b_i is a point of B, a_i of A
     bound = np.sqrt(np.einsum("ij,ij->i", va - vb, va - vb))
     d_ab = _exact_distances(va, mb, grid, margin, best=bound**2)
