@@ -121,8 +121,9 @@ def solid_moments(vertices: np.ndarray, faces: np.ndarray) -> tuple[float, np.nd
     total = vol.sum()
     s = a + b + c
     first = (vol[:, None] * s).sum(axis=0) / 4.0
-    second = (np.einsum("t,ti,tj->ij", vol, a, a) + np.einsum("t,ti,tj->ij", vol, b, b)
-              + np.einsum("t,ti,tj->ij", vol, c, c) + np.einsum("t,ti,tj->ij", vol, s, s)) / 20.0
+    # Σ_t vol_t p_t p_tᵀ as (3, F) x (F, 3) matrix products (einsum over t is ~4x slower)
+    w = vol[:, None]
+    second = ((a * w).T @ a + (b * w).T @ b + (c * w).T @ c + (s * w).T @ s) / 20.0
     mu = first / total
     cov = second / total - np.outer(mu, mu)
     return float(total), mu + ref, cov
