@@ -16,24 +16,36 @@ keeps its shape, we minimise
 
     E = Σ_f a_f [(ρ_f + 1/ρ_f − 2) + w · h(K_f)],       w = ``shear_weight``,
 
-with h(K) = K − 1 (MIPS, the default) or h(K) = arccosh(K)² (``SPHERE_SHEAR_FORM``).
+with h(K) one of (``SPHERE_SHEAR_FORM``):
+
+* ``"mips-log"`` (default): MIPS ``K − 1`` up to the knee ``K0 = SPHERE_SHEAR_KNEE``
+  (4, an anisotropy σ₁/σ₂ ≈ 7.9), continued C¹ as ``(K0 − 1) + K0·log(K/K0)`` beyond;
+* ``"mips"``: ``K − 1`` everywhere (Hormann & Greiner 2000);
+* ``"log"``: ``arccosh(K)² = (log σ₁/σ₂)²``.
 
 ``ρ + 1/ρ = 2 cosh(log ρ)`` penalises expansion and compression symmetrically in the
 log ratio and grows without bound as ``d_f → 0⁺``: a triangle cannot degenerate or
 flip along a descent path. The area part equals ``D·Σ a_f²/d_f − 1`` (the authalic
-energy; zero iff every ``ρ_f = 1``, by Cauchy–Schwarz). The shear part is the squared
-log anisotropy ``(log σ₁/σ₂)²`` (≈ 2(K − 1), the MIPS energy, for small shear) or MIPS
-itself. MIPS is the default: with the log form the maps of similar shapes were no
-longer consistent with each other — on the bundled demo study the known group
-difference of the bent structure vanished from the spectra (two-sample |t| <= 1.5 at
-every degree, against t up to 19 with MIPS at w = 0.12), because a penalty that grows
-only like ``log²`` leaves the tube's twist along its length nearly free. The log form
-remains available because it grows only like ``log²`` for large
-anisotropy: thin parts of real structures *must* be sheared to be area-preserved on the
-sphere (the isoperimetric inequality bounds how short a loop enclosing a given spherical
-area can be), and MIPS then buys shear with area error. Measured on the MNI left putamen
-at equal distortion of the synthetic shapes: MIPS (w = 0.12) ends at area SD 0.21, the
-log form (w = 0.06) at 0.11. ``w`` is the single balance parameter
+energy; zero iff every ``ρ_f = 1``, by Cauchy–Schwarz). For small shear
+``K − 1 ≈ ½(log σ₁/σ₂)²``, so all three forms agree there up to a factor.
+
+Why the knee: thin parts of real structures *must* be sheared to be area-preserved on
+the sphere (the isoperimetric inequality bounds how short a loop enclosing a given
+spherical area can be), and plain MIPS, which grows linearly in K, then buys shear with
+area error — MNI left putamen SD 0.21, thalamus 1st percentile −0.35. A penalty that
+grows only logarithmically for large K lets those parts shear. But the shear penalty
+is also what makes the maps of *similar* shapes consistent: with the "log" form
+everywhere (or a knee at 2.5 or below) the bundled demo study's known group
+difference of the bent structure vanished from the spectra (two-sample |t| <= 1.7 at
+every degree, against t up to 19 with MIPS), because a tube's twist along its length
+becomes nearly free. Measured, demo at full size (15 per group, level 4), max |t| of
+the bent structure / significant degrees: MIPS 19.1 / 7, knee 4: 18.8 / 7, knee 3:
+18.9 / 8, knee 2.5: 1.7 / 0. The bent demo shapes reach K ≈ 2.5–3.9 (max over faces;
+measured with the knee at 3), so the knee at 4 leaves them, and the synthetic test shapes, on the MIPS
+branch, a margin above that cliff. MNI putamen / thalamus (w = 0.12): MIPS SD 0.214 /
+0.085, 1st pct −0.46 / −0.35; knee 4: SD 0.119 / 0.074, 1st pct −0.28 / −0.28
+(knee 3: 0.108 / 0.071; knee 2: 0.094 / 0.064). The knee is part of the penalty's
+form, not a second balance: ``w`` is the single balance parameter
 (``defaults.SPHERE_SHEAR_WEIGHT``): ``w = 0`` is pure area preservation (uniform
 sampling, large shear on elongated shapes), large ``w`` tends to the conformal map (no
 shear, exponential area distortion).
@@ -72,12 +84,15 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..defaults import (SPHERE_AREA_ABS_TOL, SPHERE_AREA_MAX_ITER, SPHERE_AREA_REL_TOL, SPHERE_AREA_STALL_WINDOW,
-                        SPHERE_LBFGS_MEMORY, SPHERE_PRECOND_MASS, SPHERE_SHEAR_FORM)
+                        SPHERE_LBFGS_MEMORY, SPHERE_PRECOND_MASS, SPHERE_SHEAR_FORM,
+                        SPHERE_SHEAR_KNEE)
 from ..errors import ConvergenceError
 from .laplacian import triangle_cotangents
 from .linsolve import factorise
 
 _DEBUG = False
+#: (form, knee) of the shear penalty, from defaults (a list so a benchmark can swap it)
+_FORM = [SPHERE_SHEAR_FORM, SPHERE_SHEAR_KNEE]
 __all__ = ["AreaProblem", "AreaResult", "correct_area"]
 
 
@@ -225,14 +240,22 @@ class AreaProblem:
 def _shear(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Shear penalty h(K) and dh/dK, of the form ``defaults.SPHERE_SHEAR_FORM``.
 
-    ``"mips"``: h = K − 1 (Hormann & Greiner 2000), the default. ``"log"``:
-    h = arccosh(K)² = (log σ₁/σ₂)². ``K = (σ₁² + σ₂²)/(2σ₁σ₂) = cosh(log(σ₁/σ₂))``;
+    ``"mips-log"`` (default): K − 1 up to ``SPHERE_SHEAR_KNEE``, then C¹ logarithmic;
+    ``"mips"``: h = K − 1 (Hormann & Greiner 2000); ``"log"``: h = arccosh(K)² =
+    (log σ₁/σ₂)². ``K = (σ₁² + σ₂²)/(2σ₁σ₂) = cosh(log(σ₁/σ₂))``;
     values below 1 (round-off, or the ``det`` vs chordal-area gap on large faces) count
     as 1.
     """
     t = np.maximum(K - 1.0, 0.0)
-    if SPHERE_SHEAR_FORM == "mips":
+    form = _FORM[0]
+    if form == "mips":
         return t, np.ones_like(t)
+    if form == "mips-log":
+        k0 = _FORM[1]
+        big = K > k0
+        Kb = np.where(big, K, k0)
+        h = np.where(big, (k0 - 1.0) + k0 * np.log(Kb / k0), t)
+        return h, np.where(big, k0 / Kb, 1.0)
     ac = np.arccosh1p(t) if hasattr(np, "arccosh1p") else np.arccosh(1.0 + t)
     small = t < 1e-6
     safe = np.where(small, 1.0, t * (t + 2.0))
