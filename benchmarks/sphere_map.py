@@ -12,11 +12,15 @@ run:
 * SuperLU column orderings COLAMD vs MMD_AT_PLUS_A, the latter with and without
   SymmetricMode, on icosphere-numbered, shuffled and marching-cubes (MNI) meshes.
 
+* the area-SD vs angle trade-off over the shear weight w for 3:1, 4:1, 6:1 ellipsoids
+  and the bent tube, beside the isoperimetric estimate of the angle distortion that exact
+  area preservation forces (``--tradeoff`` prints only that table).
+
 Targets (issue 4): 20,000 vertices <= 3 s and 160,000 vertices <= 30 s. Times are CPU
 seconds of this process (``time.process_time``) beside wall seconds: the machine is
 shared, so wall time includes waiting for the core.
 
-Usage: ``python benchmarks/sphere_map.py [--quick] [--no-large] [--no-anatomy]``
+Usage: ``python benchmarks/sphere_map.py [--quick] [--no-large] [--no-anatomy] [--tradeoff]``
 """
 
 from __future__ import annotations
@@ -130,6 +134,63 @@ def factorisation_bench(v, f):
     return out
 
 
+def _equilateral_angle_change_deg(r, n_phi=60):
+    """Mean |Δangle| (degrees) of an equilateral triangle under diag(√r, 1/√r), averaged
+    over its orientation."""
+    out = []
+    for phi in (np.arange(n_phi) + 0.5) * (np.pi / 3) / n_phi:
+        p = np.array([[np.cos(phi + k * 2 * np.pi / 3), np.sin(phi + k * 2 * np.pi / 3)]
+                      for k in range(3)]) * [np.sqrt(r), 1 / np.sqrt(r)]
+        ang = []
+        for k in range(3):
+            u, w = p[(k + 1) % 3] - p[k], p[(k + 2) % 3] - p[k]
+            ang.append(np.arctan2(abs(u[0] * w[1] - u[1] * w[0]), u @ w))
+        out.append(np.mean(np.abs(np.array(ang) - np.pi / 3)))
+    return float(np.degrees(np.mean(out)))
+
+
+def isoperimetric_angle_estimate(a, n=801):
+    """Mean angle distortion (degrees) forced on a prolate ellipsoid (a, 1, 1) by an
+    exactly area-preserving map whose stretch is uniform along each cross-section loop.
+
+    The loop at height z (radius ρ(z)) bounds a share f of the area; on the sphere of the
+    same area (radius R) a loop enclosing share f is at least 2πR·2√(f(1−f)) long (the
+    isoperimetric inequality on the sphere; circles of latitude are optimal), so the
+    tangential stretch is at least λ = 2R√(f(1−f))/ρ and, with area kept, the anisotropy
+    λ². Averaged (area-weighted) over z for equilateral triangles at random orientation.
+    Not a strict bound for the mean |Δangle|: it saturates, so non-uniform stretch or a
+    little area error can beat it.
+    """
+    z = np.linspace(-a, a, n)
+    rho = np.sqrt(np.maximum(1 - z**2 / a**2, 0))
+    d_a = 2 * np.pi * rho * np.sqrt(1 + (z / (a * a * np.maximum(rho, 1e-12))) ** 2)
+    d_a[~np.isfinite(d_a)] = 0.0
+    cum = np.concatenate([[0.0], np.cumsum(0.5 * (d_a[1:] + d_a[:-1]) * np.diff(z))])
+    frac, radius = cum / cum[-1], np.sqrt(cum[-1] / (4 * np.pi))
+    lam = np.maximum(1.0, 2 * radius * np.sqrt(frac * (1 - frac)) / np.maximum(rho, 1e-300))
+    ang = np.array([_equilateral_angle_change_deg(x * x) for x in lam])
+    return float(np.sum(d_a * ang) / np.sum(d_a))
+
+
+def shear_tradeoff(weights=(0.03, 0.06, 0.12, 0.25, 0.5, 1.0), level=4):
+    """Area SD vs mean angle distortion over the balance parameter w (level-4 meshes)."""
+    shapes = {"ellipsoid 3:1:1": (lambda: ellipsoid(3, 1, 1, level), 3),
+              "ellipsoid 4:1:1": (lambda: ellipsoid(4, 1, 1, level), 4),
+              "ellipsoid 6:1:1": (lambda: ellipsoid(6, 1, 1, level), 6),
+              "bent tube 3:1": (lambda: bent_tube(6, 1, np.pi / 2, level), None)}
+    rows = []
+    for name, (make, a) in shapes.items():
+        v, f = make()
+        est = isoperimetric_angle_estimate(a) if a else None
+        for w in weights:
+            m = map_to_sphere(v, f, shear_weight=w, source=name)
+            rows.append({"shape": name, "shear_weight": w, "area_log_sd": m.qc.area_log_sd,
+                         "area_log_p01": m.qc.area_log_p01,
+                         "angle_mean_deg": m.qc.angle_distortion_mean_deg,
+                         "isoperimetric_estimate_deg": est})
+    return rows
+
+
 def anatomy_surfaces(names):
     try:
         from shapedesc.mesh.template_anatomy import template_structure
@@ -157,8 +218,24 @@ def main(argv=None):
     ap.add_argument("--quick", action="store_true", help="20k only, tube only")
     ap.add_argument("--no-large", action="store_true", help="skip the 160k-vertex case")
     ap.add_argument("--no-anatomy", action="store_true", help="skip the MNI template surfaces")
+    ap.add_argument("--tradeoff", action="store_true",
+                    help="only the area-SD vs angle table over the shear weight")
     args = ap.parse_args(argv)
-    results = {"maps": [], "baseline": [], "factorisation": {}, "targets_s": {"20k": 3.0, "160k": 30.0}}
+    results = {"maps": [], "baseline": [], "factorisation": {}, "tradeoff": [],
+               "targets_s": {"20k": 3.0, "160k": 30.0}}
+    print("area SD vs mean angle distortion over the shear weight w (level 4, 2,562 vertices);"
+          "\n'estimate' = isoperimetric estimate for exact area preservation")
+    print(f"{'shape':18s} {'w':>5s} {'SD':>7s} {'p1':>7s} {'angle°':>7s} {'estimate°':>9s}")
+    for row in shear_tradeoff():
+        results["tradeoff"].append(row)
+        est = row["isoperimetric_estimate_deg"]
+        print(f"{row['shape']:18s} {row['shear_weight']:5.2f} {row['area_log_sd']:7.4f} "
+              f"{row['area_log_p01']:7.3f} {row['angle_mean_deg']:7.2f} "
+              f"{'' if est is None else f'{est:9.1f}'}")
+    _write(results)
+    if args.tradeoff:
+        return 0
+    print()
     cases = []
     names20 = ["bent tube 3:1"] if args.quick else list(_shapes(45))
     for n in names20:

@@ -217,3 +217,46 @@ def test_energy_gradient_matches_finite_differences():
     bad = x.copy()
     bad[f[0, 0]] = -bad[f[0, 0]]
     assert p.energy(bad) == np.inf
+
+
+def _isoperimetric_angle_estimate_deg(a, n=801, n_phi=60):
+    """Mean |Δangle| forced on the (a, 1, 1) ellipsoid by an exactly area-preserving map
+    with uniform stretch along each cross-section loop (see benchmarks/sphere_map.py).
+
+    Source: the isoperimetric inequality on the sphere, L² >= A(4πR² − A)/R² (Schmidt
+    1943; equality for circles of latitude): a loop enclosing the area share f is at least
+    2πR·2√(f(1−f)) long, so the loop of radius ρ(z) is stretched at least by
+    2R√(f(1−f))/ρ, and with area kept the anisotropy is that ratio squared.
+    """
+    z = np.linspace(-a, a, n)
+    rho = np.sqrt(np.maximum(1 - z**2 / a**2, 0))
+    d_a = 2 * np.pi * rho * np.sqrt(1 + (z / (a * a * np.maximum(rho, 1e-12))) ** 2)
+    d_a[~np.isfinite(d_a)] = 0.0
+    cum = np.concatenate([[0.0], np.cumsum(0.5 * (d_a[1:] + d_a[:-1]) * np.diff(z))])
+    frac, radius = cum / cum[-1], np.sqrt(cum[-1] / (4 * np.pi))
+    lam = np.maximum(1.0, 2 * radius * np.sqrt(frac * (1 - frac)) / np.maximum(rho, 1e-300))
+    phis = (np.arange(n_phi) + 0.5) * (np.pi / 3) / n_phi
+    k = np.arange(3) * 2 * np.pi / 3
+    ang = np.empty(n)
+    for i, s in enumerate(lam):
+        p = np.stack([np.cos(phis[:, None] + k) * s, np.sin(phis[:, None] + k) / s], axis=-1)
+        u = np.roll(p, -1, axis=1) - p
+        w = np.roll(p, -2, axis=1) - p
+        corner = np.arctan2(np.abs(u[..., 0] * w[..., 1] - u[..., 1] * w[..., 0]),
+                            (u * w).sum(-1))
+        ang[i] = np.degrees(np.abs(corner - np.pi / 3).mean())
+    return float(np.sum(d_a * ang) / np.sum(d_a))
+
+
+def test_angle_distortion_of_the_6to1_ellipsoid_within_the_isoperimetric_estimate(maps):
+    # the issue's 20° target cannot be met on a 6:1 ellipsoid at area SD <= 0.10: exact area
+    # preservation with uniform loop stretch forces ~39° (isoperimetric argument above;
+    # the lead's hand computation gave 22°/29°/39° for 3:1/4:1/6:1, as this function does)
+    est = _isoperimetric_angle_estimate_deg(6.0)
+    assert est == pytest.approx(38.8, abs=0.5)  # the estimate itself (lead's value)
+    assert _isoperimetric_angle_estimate_deg(3.0) == pytest.approx(22.2, abs=0.5)
+    v, f, m = maps["ellipsoid 6:1:1"]
+    # not worse than the estimate; the map beats it by a few degrees because the mean
+    # |Δangle| saturates (non-uniform stretch along a loop pays off) and SD 0.1 of area
+    # error is allowed — measured 33.2° (benchmarks/sphere_map.py --tradeoff)
+    assert m.qc.angle_distortion_mean_deg <= est

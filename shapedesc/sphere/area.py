@@ -50,6 +50,34 @@ form, not a second balance: ``w`` is the single balance parameter
 sampling, large shear on elongated shapes), large ``w`` tends to the conformal map (no
 shear, exponential area distortion).
 
+Area–angle frontier
+-------------------
+The issue's "mean angle distortion <= 20° on elongated shapes at area SD <= 0.10" is
+met by the 3:1 bent tube (19.9° at SD 0.047) but cannot be met by a 6:1 ellipsoid with
+any ``w`` of this energy. Measured at level 4 (``benchmarks/sphere_map.py --tradeoff``;
+mean angle ° at area SD):
+
+=============  ============  ============  ============  ============  ===============
+shape          w = 0.03      w = 0.12      w = 0.25      w = 1.0       isoperimetric
+=============  ============  ============  ============  ============  ===============
+3:1 ellipsoid  20.8 @ 0.012  20.1 @ 0.044  19.3 @ 0.084  16.4 @ 0.24  22.2
+4:1 ellipsoid  26.8 @ 0.018  25.8 @ 0.064  24.8 @ 0.119  21.2 @ 0.32  29.2
+6:1 ellipsoid  34.5 @ 0.028  33.2 @ 0.099  31.8 @ 0.179  27.4 @ 0.44  38.8
+3:1 bent tube  20.6 @ 0.014  19.9 @ 0.047  19.1 @ 0.090  16.3 @ 0.25  —
+=============  ============  ============  ============  ============  ===============
+
+The last column is what exact area preservation forces if the stretch is uniform along
+each cross-section loop: a loop of radius ρ enclosing the area share f must map to a
+loop at least 2πR·2√(f(1−f)) long on the sphere of equal area (the spherical
+isoperimetric inequality, Schmidt 1943), so its tangential stretch is at least that
+ratio and, with area kept, the anisotropy its square; averaged for equilateral
+triangles. The maps beat that estimate by 2–11° because the mean |Δangle| saturates
+(uneven stretch along a loop pays off) and some area error is allowed, but the frontier
+is flat: at SD <= 0.10 the 6:1 ellipsoid cannot get below ~33° with this energy, and
+even SD 0.44 buys only 27°. Going further would mean concentrating the shear into a
+seam, which breaks the consistency of the maps across similar shapes that the
+descriptors need; we do not.
+
 Solver
 ------
 Points stay on the sphere through the retraction ``x ↦ (x + t·d)/|x + t·d|`` of tangent
@@ -72,6 +100,8 @@ Degener, P., Meseth, J. & Klein, R. (2003). An adaptable surface parameterizatio
 method. *Proc. 12th International Meshing Roundtable*, 201–213.
 Kovalsky, S. Z., Galun, M. & Lipman, Y. (2016). Accelerated quadratic proxy for
 geometric optimization. *ACM Trans. Graph.* 35(4), 134. doi:10.1145/2897824.2925920
+Schmidt, E. (1943). Beweis der isoperimetrischen Eigenschaft der Kugel im hyperbolischen
+und sphärischen Raum jeder Dimensionszahl. *Math. Z.* 49, 1–109. doi:10.1007/BF01174192
 Nocedal, J. & Wright, S. J. (2006). *Numerical Optimization*, 2nd ed., Springer.
 doi:10.1007/978-0-387-40065-5
 """
