@@ -66,7 +66,7 @@ def _row(name, v, f, m, cpu, wall):
             "area_log_sd": q.area_log_sd, "area_log_p01": q.area_log_p01,
             "area_log_p99": q.area_log_p99, "angle_mean_deg": q.angle_distortion_mean_deg,
             "iterations": q.iterations, "levels": m.parameters["levels"],
-            "crowding_offset_edges": m.parameters["crowding_offset_edges"],
+            "initial_map": m.qc.initial_map,
             "cpu_s": cpu, "wall_s": wall, "conformal_s": q.seconds_conformal,
             "centring_s": q.seconds_centring, "area_s": q.seconds_area}
 
@@ -247,7 +247,7 @@ def main(argv=None):
                                           ("thalamus_left", None), ("wm_left", 40000)]).items():
             cases.append((n, v, f))
     print(f"{'shape':18s} {'V':>7s} {'flips':>5s} {'SD':>7s} {'p1':>7s} {'p99':>7s} "
-          f"{'angle°':>7s} {'iter':>5s} {'cpu s':>7s} {'wall s':>7s}")
+          f"{'angle°':>7s} {'iter':>5s} {'cpu s':>7s} {'wall s':>7s}  start   (load {os.getloadavg()[0]:.1f})")
     for name, v, f in cases:
         try:
             m, row = run_map(name, v, f)
@@ -260,7 +260,7 @@ def main(argv=None):
         _write(results)  # incremental: a long case does not lose the earlier rows
         print(f"{name:18s} {len(v):7d} {row['flips_all_stages']:5d} {row['area_log_sd']:7.4f} "
               f"{row['area_log_p01']:7.3f} {row['area_log_p99']:7.3f} {row['angle_mean_deg']:7.2f} "
-              f"{row['iterations']:5d} {row['cpu_s']:7.2f} {row['wall_s']:7.2f}")
+              f"{row['iterations']:5d} {row['cpu_s']:7.2f} {row['wall_s']:7.2f}  {row['initial_map']}")
         if name == "bent tube 3:1" or name == "ellipsoid 6:1:1":
             if len(v) < 50000:
                 b = baseline(name, v, f, row["cpu_s"])

@@ -7,8 +7,9 @@ Public interface::
     locate_on_sphere(sphere_vertices, faces, points) -> (face_index, barycentric)
     pull_back(sphere_map, surface_vertices, points) -> (n, 3) surface positions
 
-See :mod:`.api` for the chain and :mod:`.conformal`, :mod:`.mobius`, :mod:`.area`,
-:mod:`.multires`, :mod:`.linsolve` for the methods and their references.
+See :mod:`.api` for the chain and :mod:`.conformal`, :mod:`.hierarchy` (start for
+surfaces whose conformal map crowds), :mod:`.mobius`, :mod:`.area`, :mod:`.multires`,
+:mod:`.linsolve` for the methods and their references.
 """
 
 from .api import SphereMap, SphereMapQC, map_to_sphere

@@ -3,6 +3,14 @@
 conformal initial map (:mod:`.conformal`) → Möbius centring (:mod:`.mobius`) →
 area/shear correction (:mod:`.area`, :mod:`.multires`) → QC (:mod:`.qc`).
 
+When the centred conformal map is crowded below double precision (a flipped face after
+the harmonic step or the stereographic projection, or a face whose ``det`` is below
+``SPHERE_MIN_REL_DET`` of the mean — cheap to check, one solve), the chain switches once,
+without retries, to the coarse-to-fine start of :mod:`.hierarchy` (coarsen, Tutte map of
+the coarse surface, bijective vertex splits); ``SphereMap.parameters["initial_map"]`` and
+``SphereMapQC.initial_map`` record which start was used, and
+``parameters["conformal_attempt"]`` what the conformal attempt found.
+
 The map depends only on the intrinsic geometry of the surface (edge lengths, angles,
 areas) and on the face order: rotating or translating the surface leaves the sphere
 positions unchanged (bit for bit up to the round-off of the rotated coordinates), so the
@@ -52,7 +60,9 @@ class SphereMapQC:
     angle_distortion_mean_deg : float
         Mean absolute corner-angle change, degrees.
     seconds_conformal, seconds_centring, seconds_area, seconds_total : float
-        Wall-clock time of the stages and of the whole call (s).
+        Wall-clock time of the stages and of the whole call (s); ``seconds_conformal`` is
+        the whole initial map (the conformal attempt and, if used, the coarse-to-fine
+        start).
     iterations : int
         Area-correction iterations (all levels).
     initial_map : str
