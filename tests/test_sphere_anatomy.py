@@ -7,11 +7,13 @@ grey-matter nucleus (left caudate, ~3,200 vertices).
 With the default shear form (MIPS with a logarithmic branch beyond its knee,
 ``shapedesc.sphere.area``) the caudate and the thalamus meet the targets (thalamus SD
 0.074, 1st/99th percentiles −0.28/0.17; with plain MIPS its 1st percentile was −0.35).
-Known open targets (issue 4 stays open for them): the left putamen (SD 0.12, 99th
-percentile 0.37) and the 40,000-vertex white-matter hemisphere. The hemisphere's
+Known open targets (issue 4 stays open for them): the left putamen (SD 0.125,
+1st/99th percentiles −0.31/0.42) and the 40,000-vertex white-matter hemisphere (SD 0.119
+and 1st percentile −0.28 meet the hemisphere targets, the 99th percentile 0.41 does
+not). The hemisphere's
 conformal map crowds below double precision, so it is mapped from the coarse-to-fine
-start (``shapedesc.sphere.hierarchy``): bijective at every stage but above the
-distortion targets and slow (~150 s CPU). ``--full`` therefore asserts the distortion
+start (``shapedesc.sphere.hierarchy``): bijective at every stage, but slow (~205 s
+CPU). ``--full`` therefore asserts the distortion
 targets only for the structures in ``_FULL`` and, for the hemisphere, bijectivity at
 every stage and the round trip; add the others to ``_FULL`` when they pass.
 """

@@ -43,8 +43,9 @@ the bent structure / significant degrees: MIPS 19.1 / 7, knee 4: 18.8 / 7, knee 
 18.9 / 8, knee 2.5: 1.7 / 0. The bent demo shapes reach K ≈ 2.5–3.9 (max over faces;
 measured with the knee at 3), so the knee at 4 leaves them, and the synthetic test shapes, on the MIPS
 branch, a margin above that cliff. MNI putamen / thalamus (w = 0.12): MIPS SD 0.214 /
-0.085, 1st pct −0.46 / −0.35; knee 4: SD 0.119 / 0.074, 1st pct −0.28 / −0.28
-(knee 3: 0.108 / 0.071; knee 2: 0.094 / 0.064). The knee is part of the penalty's
+0.085, 1st pct −0.46 / −0.35; knee 4: SD 0.12 / 0.074, 1st pct −0.28 to −0.31 (the
+putamen's value depends on the coarse-to-fine start's settings) / −0.28 (knee 3:
+0.108 / 0.071; knee 2: 0.094 / 0.064). The knee is part of the penalty's
 form, not a second balance: ``w`` is the single balance parameter
 (``defaults.SPHERE_SHEAR_WEIGHT``): ``w = 0`` is pure area preservation (uniform
 sampling, large shear on elongated shapes), large ``w`` tends to the conformal map (no
