@@ -180,7 +180,7 @@ def test_level5_targets(full):
         assert -0.3 <= m.qc.area_log_p01 and m.qc.area_log_p99 <= 0.3
 
 
-def test_energy_gradient_matches_finite_differences():
+def test_energy_gradient_matches_finite_differences(monkeypatch):
     # central differences along a random tangent direction (common practice); step 1e-6
     # gives truncation ~1e-12 and round-off ~1e-10 relative to the slope
     from shapedesc.sphere.area import _retract
@@ -196,7 +196,7 @@ def test_energy_gradient_matches_finite_differences():
         h = 1e-6
         fd = (p.energy(_retract(x, d, h)) - p.energy(_retract(x, d, -h))) / (2 * h)
         assert fd == pytest.approx(np.vdot(g, d), rel=1e-6)
-    # the logarithmic branch of the default shear form beyond its knee: a 12:1 ellipsoid
+    # every shear form beyond the knee (bounded, logarithmic): a 12:1 ellipsoid
     # in its natural parameterisation (the icosphere) has anisotropy up to 12 (K ≈ 6)
     from shapedesc.defaults import SPHERE_SHEAR_KNEE
     from shapedesc.shapes import icosphere as _ico
@@ -207,16 +207,42 @@ def test_energy_gradient_matches_finite_differences():
     q = (pe.cot[:, 0] * ((c_ - b_) ** 2).sum(1) + pe.cot[:, 1] * ((a_ - c_) ** 2).sum(1)
          + pe.cot[:, 2] * ((b_ - a_) ** 2).sum(1))
     assert (q / (2 * pe.dets(xe))).max() > SPHERE_SHEAR_KNEE  # both branches are exercised
-    e, g = pe.energy_grad(xe)
+    import shapedesc.sphere.area as area_mod
     d = np.random.default_rng(4).normal(size=xe.shape)
     d -= np.einsum("ij,ij->i", d, xe)[:, None] * xe
     h = 1e-6
-    fd = (pe.energy(_retract(xe, d, h)) - pe.energy(_retract(xe, d, -h))) / (2 * h)
-    assert fd == pytest.approx(np.vdot(g, d), rel=1e-6)
+    for form in ("mips-bounded", "mips-log", "mips", "log"):  # the default and the others
+        monkeypatch.setattr(area_mod, "_FORM", [form, SPHERE_SHEAR_KNEE])
+        e, g = pe.energy_grad(xe)
+        fd = (pe.energy(_retract(xe, d, h)) - pe.energy(_retract(xe, d, -h))) / (2 * h)
+        assert fd == pytest.approx(np.vdot(g, d), rel=1e-6), form
     # flips are barred: a folded face gives infinite energy
     bad = x.copy()
     bad[f[0, 0]] = -bad[f[0, 0]]
     assert p.energy(bad) == np.inf
+
+
+def test_bounded_shear_form_is_c1_at_the_knee_and_bounded(monkeypatch):
+    # against the closed form of the definition (shapedesc/sphere/area.py): MIPS K − 1
+    # below K0, (K0 − 1) + K0·(1 − K0/K) above; value and slope continuous at K0, the
+    # penalty below 2·K0 − 1, and its pull K·h'(K) = K0²/K falling beyond the knee
+    import shapedesc.sphere.area as area_mod
+    from shapedesc.defaults import SPHERE_SHEAR_KNEE as k0
+    monkeypatch.setattr(area_mod, "_FORM", ["mips-bounded", k0])
+    eps = 1e-7
+    K = np.array([1.5, k0 - eps, k0 + eps, 2 * k0, 1e3, 1e9])
+    h, dh = area_mod._shear(K)
+    want = np.where(K <= k0, K - 1, (k0 - 1) + k0 * (1 - k0 / K))
+    np.testing.assert_allclose(h, want, rtol=1e-14, atol=0)  # round-off only
+    assert abs(h[2] - h[1]) < 3 * eps and abs(dh[2] - dh[1]) < 3 * eps / k0  # C¹ at K0 (O(eps))
+    assert h.max() < 2 * k0 - 1
+    pull = K * dh
+    assert np.all(np.diff(pull[2:]) < 0)
+    # the finite-difference slope matches dh beyond the knee (central differences, common
+    # practice; relative step 1e-6 gives ~1e-10 error)
+    Kb = np.array([5.0, 40.0, 900.0])
+    fd = (area_mod._shear(Kb * (1 + 1e-6))[0] - area_mod._shear(Kb * (1 - 1e-6))[0]) / (2e-6 * Kb)
+    np.testing.assert_allclose(fd, area_mod._shear(Kb)[1], rtol=1e-6)
 
 
 def _isoperimetric_angle_estimate_deg(a, n=801, n_phi=60):
