@@ -54,6 +54,11 @@ def test_template_structures_map_bijectively_with_low_distortion(template_dir, f
         assert surf.n_vertices - len(e) + len(f) == 2
         m = map_to_sphere(surf.vertices, surf.faces, source=name)
         assert max(m.qc.flips_per_stage.values()) == 0, (name, m.qc.flips_per_stage)
+        # a flip after the stereographic projection, even one the pole correction repairs,
+        # sends the surface to the coarse-to-fine start (the rule in shapedesc.sphere.api;
+        # the caudate's conformal attempt has 2 such flips, measured)
+        if m.parameters["conformal_attempt"]["flips_projected"]:
+            assert m.qc.initial_map == "coarse-to-fine", (name, m.parameters["conformal_attempt"])
         assert m.qc.area_log_sd <= _SD_TARGET[name], (name, m.qc.area_log_sd)
         assert -0.3 <= m.qc.area_log_p01 and m.qc.area_log_p99 <= 0.3, (name, m.qc.to_row())
         # round trip exact at the vertices (mm; 1e-9 mm is far below any voxel)
