@@ -77,12 +77,67 @@ def _round(v, f, wanted, min_cos, tries=6):
     adj = sparse.coo_matrix((np.ones(2 * len(e)), (np.r_[e[:, 0], e[:, 1]],
                                                    np.r_[e[:, 1], e[:, 0]])),
                             shape=(nv, nv)).tocsr()
-    degree = np.diff(adj.indptr)
     # faces around each vertex (for the fold check)
     vf = sparse.coo_matrix((np.ones(3 * len(f)), (f.ravel(), np.repeat(np.arange(len(f)), 3))),
                            shape=(nv, len(f))).tocsr()
+    a, b = independent_collapses(
+        e, rank, adj, np.ones(len(e), bool), wanted,
+        accept=lambda a, b: _no_fold(v, f, vf, a, b, min_cos), tries=tries)
+    n_acc = len(a)
+    if n_acc == 0:
+        return v, f, 0
+    v = v.copy()
+    v[a] = 0.5 * (v[a] + v[b])
+    remap = np.arange(nv)
+    remap[b] = a
+    f = remap[f]
+    f = f[(f[:, 0] != f[:, 1]) & (f[:, 1] != f[:, 2]) & (f[:, 2] != f[:, 0])]
+    used = np.zeros(nv, bool)
+    used[f.ravel()] = True
+    new_index = np.cumsum(used) - 1
+    return v[used], new_index[f], n_acc
+
+
+def independent_collapses(e, rank, adj, candidate, wanted, *, accept=None, tries=6):
+    """Up to ``wanted`` edge collapses that can be applied at once, cheapest first.
+
+    An edge is taken in a pass when its rank is the smallest within two rings of both
+    ends (so no two taken edges share a vertex or a face), it passes the link condition
+    (exactly two common neighbours, which keeps a closed manifold of the same topology;
+    Dey et al. 1999), ``accept`` and the valence rule (each vertex opposite a collapsed
+    edge keeps at least three edges, counting all collapses of the round). The closed
+    1-rings of taken edges are then blocked, and up to ``tries`` passes fill in the rest.
+
+    Parameters
+    ----------
+    e : ndarray, shape (E, 2), int
+        Undirected edges; ``e[:, 1]`` is the vertex that goes.
+    rank : ndarray, shape (E,), int
+        Order of preference (0 = collapse first), a permutation of ``range(E)``.
+    adj : scipy.sparse.csr_matrix, shape (V, V)
+        Vertex adjacency of the mesh.
+    candidate : ndarray, shape (E,), bool
+        Edges allowed at all (modified in place).
+    wanted : int
+        Most collapses to return.
+    accept : callable (a, b) -> ndarray of bool, optional
+        Further condition on candidate edges ``(a[i], b[i])`` (e.g. no fold).
+    tries : int
+        Passes.
+
+    Returns
+    -------
+    a, b : ndarray, shape (n,), int64
+        Kept and removed vertex of each collapse (n <= wanted).
+
+    References
+    ----------
+    Dey, T. K., Edelsbrunner, H., Guha, S. & Nekhayev, D. V. (1999). Topology preserving
+    edge contraction. *Publ. Inst. Math. (Beograd)* 66(80), 23–45.
+    """
+    nv = adj.shape[0]
+    degree = np.diff(adj.indptr)
     big = np.iinfo(np.int64).max
-    candidate = np.ones(len(e), bool)
     blocked = np.zeros(nv, bool)  # closed 1-rings of accepted collapses' endpoints
     loss = np.zeros(nv, np.int64)  # edges the accepted collapses take from each vertex
     acc_a, acc_b = [], []
@@ -105,13 +160,13 @@ def _round(v, f, wanted, min_cos, tries=6):
         common = adj[a].multiply(adj[b]).tocsr()
         n_common = np.diff(common.indptr)
         ok = n_common == 2  # link condition
-        ok &= _no_fold(v, f, vf, a, b, min_cos)
+        if accept is not None:
+            ok &= accept(a, b)
         # the two opposite vertices each lose an edge per collapse (several collapses
         # of a round may share one): each must keep at least 3
         rows = np.repeat(np.arange(len(a)), n_common)
         opp = common.indices
-        use = ok[rows]
-        after = degree - loss - np.bincount(opp[use], minlength=nv)
+        after = degree - loss - np.bincount(opp[ok[rows]], minlength=nv)
         low = np.zeros(len(a), bool)
         np.logical_or.at(low, rows, after[opp] < 3)
         ok &= ~low
@@ -132,18 +187,8 @@ def _round(v, f, wanted, min_cos, tries=6):
         blocked[ends] = True
         blocked[adj[ends].indices] = True
     if n_acc == 0:
-        return v, f, 0
-    a, b = np.concatenate(acc_a), np.concatenate(acc_b)
-    v = v.copy()
-    v[a] = 0.5 * (v[a] + v[b])
-    remap = np.arange(nv)
-    remap[b] = a
-    f = remap[f]
-    f = f[(f[:, 0] != f[:, 1]) & (f[:, 1] != f[:, 2]) & (f[:, 2] != f[:, 0])]
-    used = np.zeros(nv, bool)
-    used[f.ravel()] = True
-    new_index = np.cumsum(used) - 1
-    return v[used], new_index[f], n_acc
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    return np.concatenate(acc_a).astype(np.int64), np.concatenate(acc_b).astype(np.int64)
 
 
 def _no_fold(v, f, vf, a, b, min_cos):

@@ -82,6 +82,7 @@ import scipy.sparse as sp
 from ..defaults import (SPHERE_HIERARCHY_COARSE_VERTICES, SPHERE_HIERARCHY_GROWTH,
                         SPHERE_HIERARCHY_ITER, SPHERE_MIN_REL_DET)
 from ..errors import ConvergenceError
+from ..mesh.decimate import independent_collapses
 from ..mesh.measures import vertex_areas
 from .area import AreaProblem, correct_area
 from .conformal import conformal_sphere_map, sphere_face_det
@@ -162,57 +163,13 @@ def _collapse_round(v: np.ndarray, f: np.ndarray, q: np.ndarray, wanted: int, tr
     adj = sp.csr_matrix((np.ones(2 * len(e)), (np.r_[e[:, 0], e[:, 1]], np.r_[e[:, 1], e[:, 0]])),
                         shape=(nv, nv))
     degree = np.diff(adj.indptr)
-    big = np.iinfo(np.int64).max
     # link condition (exactly two common neighbours) and valence, for every edge at once
     n_common_all = np.diff(adj[e[:, 0]].multiply(adj[e[:, 1]]).tocsr().indptr)
     candidate = (n_common_all == 2) & (degree[e[:, 0]] + degree[e[:, 1]] - 4 >= 3)
-    blocked = np.zeros(nv, bool)
-    loss = np.zeros(nv, np.int64)
-    acc_a, acc_b = [], []
-    n_acc = 0
-    for _ in range(tries):
-        candidate &= ~(blocked[e[:, 0]] | blocked[e[:, 1]])
-        if not candidate.any() or n_acc >= wanted:
-            break
-        r = np.where(candidate, rank, big)
-        vmin = np.full(nv, big)
-        np.minimum.at(vmin, e[:, 0], r)
-        np.minimum.at(vmin, e[:, 1], r)
-        ring2 = vmin.copy()
-        np.minimum.at(ring2, e[:, 0], vmin[e[:, 1]])
-        np.minimum.at(ring2, e[:, 1], vmin[e[:, 0]])
-        sel = np.flatnonzero(candidate & (ring2[e[:, 0]] == r) & (ring2[e[:, 1]] == r))
-        if len(sel) == 0:
-            break
-        a, b = e[sel, 0], e[sel, 1]
-        common = adj[a].multiply(adj[b]).tocsr()
-        n_common = np.diff(common.indptr)
-        ok = (n_common == 2) & (degree[a] + degree[b] - 4 >= 3)  # link condition, valence
-        rows = np.repeat(np.arange(len(a)), n_common)
-        opp = common.indices
-        after = degree - loss - np.bincount(opp[ok[rows]], minlength=nv)
-        low = np.zeros(len(a), bool)
-        np.logical_or.at(low, rows, after[opp] < 3)
-        ok &= ~low
-        candidate[sel[~ok]] = False
-        keep_rows = ok[rows]
-        a, b = a[ok], b[ok]
-        if len(a) == 0:
-            continue
-        take = min(len(a), wanted - n_acc)
-        if take < len(a):
-            keep_rows &= np.cumsum(ok)[rows] <= take
-        loss += np.bincount(opp[keep_rows], minlength=nv)
-        a, b = a[:take], b[:take]
-        acc_a.append(a)
-        acc_b.append(b)
-        n_acc += take
-        ends = np.r_[a, b]
-        blocked[ends] = True
-        blocked[adj[ends].indices] = True
+    a, b = independent_collapses(e, rank, adj, candidate, wanted, tries=tries)
+    n_acc = len(a)
     if n_acc == 0:
         return f, np.zeros(0, np.int64), np.zeros(0, np.int64)
-    a, b = np.concatenate(acc_a), np.concatenate(acc_b)
     remap = np.arange(nv)
     remap[b] = a
     g = remap[f]
