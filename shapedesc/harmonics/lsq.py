@@ -227,7 +227,7 @@ def fit(points, values, lmax, *, weights=None, tikhonov: float = 0.0,
         raise ValueError(f"fit: penalty must be 'laplacian' or 'identity', got {penalty!r}")
     heat = heat_kernel_factors(lmax, heat_bandwidth)  # validates the bandwidth
     if method not in METHODS:
-        raise ValueError(f"fit: method must be 'auto', 'moments' or 'direct', got {method!r}")
+        raise ValueError(f"fit: method must be one of {', '.join(METHODS)}, got {method!r}")
     many = n > 2 * (2 * lmax + 1) * (4 * lmax + 2)
     exact = "moments" if many and lmax >= defaults.SH_FIT_MOMENTS_MIN_DEGREE else "direct"
     if method == "auto":

@@ -90,11 +90,8 @@ def _point_synthesis(theta, phi, coefficients: np.ndarray, lmax: int, nthreads: 
 def _normal_matrix(moments: np.ndarray, lmax: int) -> np.ndarray:
     """Upper triangle of G = Σ_i w_i R(x_i) R(x_i)ᵀ (K, K) from the degree-2L moments."""
     K = (lmax + 1) ** 2
-    L2 = 2 * lmax
-    grid = gl_grid(L2)
-    density = gl_synthesis(SHCoefficients(moments, L2, "real"))[:, 0]
-    g = density * grid.weights
-    z, s, phi = _angles(grid.points)
+    g = _grid_density(moments, lmax)[1].ravel()
+    z, s, phi = _angles(gl_grid(2 * lmax).points)
     G = np.zeros((K, K), order="F")
     Gneg = np.zeros((K, K), order="F")
     step = chunk_rows(K)
