@@ -10,7 +10,7 @@ from __future__ import annotations
 import logging
 import os
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -212,7 +212,14 @@ def read_label_volume(path: str | os.PathLike, *,
                        f"{shape} -> {arr.shape})")
         logger.info("%s: squeezed a singleton 4th axis", path)
     arr = _as_labels(arr, path=path)
-    step = _intensity_like_step(arr)
+    affine = np.array(img.affine, dtype=np.float64)
+    unit = img.header.get_xyzt_units()[0]
+    scale = _UNIT_TO_MM.get(unit, 1.0)
+    if scale != 1.0:
+        affine[:3, :] *= scale
+        history.append(f"spatial unit '{unit}' converted to mm (x{scale:g})")
+    volume = LabelVolume(data=arr, affine=affine, path=str(path), history=tuple(history))
+    step = _intensity_like_step(volume.data, volume.labels)
     if step is not None:
         n_distinct, median_step = step
         msg = (f"{path}: {n_distinct} distinct non-zero values whose neighbouring voxels "
@@ -220,24 +227,19 @@ def read_label_volume(path: str | os.PathLike, *,
                "intensity map stored as integers, not a segmentation. Threshold it into a "
                "label image first; the values are used as labels as they are.")
         warnings.warn(msg, IntensityLikeVolumeWarning, stacklevel=2)
-        history.append("warned: looks like a quantised probability/intensity map")
-    affine = np.array(img.affine, dtype=np.float64)
-    unit = img.header.get_xyzt_units()[0]
-    scale = _UNIT_TO_MM.get(unit, 1.0)
-    if scale != 1.0:
-        affine[:3, :] *= scale
-        history.append(f"spatial unit '{unit}' converted to mm (x{scale:g})")
-    return LabelVolume(data=arr, affine=affine, path=str(path), history=tuple(history))
+        volume = replace(volume, history=volume.history
+                         + ("warned: looks like a quantised probability/intensity map",))
+    return volume
 
 
-def _intensity_like_step(data: np.ndarray) -> tuple[int, float] | None:
+def _intensity_like_step(data: np.ndarray, present: tuple[int, ...]) -> tuple[int, float] | None:
     """(distinct count, median neighbour step) when ``data`` looks like a smooth quantised map.
 
     A segmentation has few labels and arbitrary codes across parcel borders; a probability
     map stored as integers has many values that change gradually between neighbours
-    (thresholds ``defaults.LABEL_INTENSITY_*``). Returns None for a plausible label image.
+    (thresholds ``defaults.LABEL_INTENSITY_*``); ``present`` are its sorted non-zero
+    values. Returns None for a plausible label image.
     """
-    present = _labels_present(data)
     if len(present) < defaults.LABEL_INTENSITY_MIN_DISTINCT:
         return None
     steps = []
