@@ -175,17 +175,22 @@ def check_outdir(outdir: str | Path, *, parameters: dict, inputs: list[str],
                             f"({described}); choose another -o or pass --force to replace them")
 
 
-def write_coefficient_files(outdir: Path, name: str, files: dict[str, bytes]) -> None:
-    """Write ``coefficients/<name><suffix>`` for each file, skipping identical ones."""
+def write_coefficient_files(outdir: Path, name: str, files: dict[str, bytes]) -> list[str]:
+    """Write ``coefficients/<name><suffix>`` for each file, skipping identical ones.
+
+    Returns the file names (``<name><suffix>``), written or already identical."""
     folder = outdir / COEFFICIENTS
+    names = []
     for suffix, data in sorted(files.items()):
-        path = folder / f"{name}{suffix}"
+        names.append(f"{name}{suffix}")
+        path = folder / names[-1]
         try:
             if path.read_bytes() == data:
                 continue
         except OSError:
             pass
         write_bytes_atomic(path, data)
+    return names
 
 
 def _columns(rows: list[dict], leading: list[str]) -> list[str]:

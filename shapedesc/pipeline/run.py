@@ -370,9 +370,8 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
             if entry["status"] == "ok":
                 # Rewrite the coefficient file if a crash came between the cache write
                 # and the file write, or coefficients/ was deleted (identical: skipped).
-                files = ResultCache.files(entry)
-                write_coefficient_files(outdir, it.name, files)
-                expected_files.update(f"{it.name}{sfx}" for sfx in files)
+                expected_files.update(
+                    write_coefficient_files(outdir, it.name, ResultCache.files(entry)))
                 entries[key] = {"status": "ok", "rows": entry["rows"],
                                 "timings": entry.get("timings", {})}
             else:
@@ -398,8 +397,7 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
             entry = {"status": "ok", "rows": result["rows"], "files": result["files"],
                      "timings": timings}
             cache.put(key, entry)
-            write_coefficient_files(outdir, names[key], result["files"])
-            expected_files.update(f"{names[key]}{sfx}" for sfx in result["files"])
+            expected_files.update(write_coefficient_files(outdir, names[key], result["files"]))
             entries[key] = {"status": "ok", "rows": result["rows"], "timings": timings}
         else:
             record = {"status": "failed", "stage": result["stage"], "error": result["error"],
