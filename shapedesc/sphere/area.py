@@ -148,7 +148,6 @@ from ..errors import ConvergenceError
 from .laplacian import triangle_cotangents
 from .linsolve import factorise
 
-_DEBUG = False
 #: (form, knee) of the shear penalty, from defaults (a list so a benchmark can swap it)
 _FORM = [SPHERE_SHEAR_FORM, SPHERE_SHEAR_KNEE]
 __all__ = ["AreaProblem", "AreaResult", "correct_area"]
@@ -298,11 +297,11 @@ class AreaProblem:
 def _shear(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Shear penalty h(K) and dh/dK, of the form ``defaults.SPHERE_SHEAR_FORM``.
 
-    ``"mips-log"`` (default): K − 1 up to ``SPHERE_SHEAR_KNEE``, then C¹ logarithmic;
-    ``"mips"``: h = K − 1 (Hormann & Greiner 2000); ``"log"``: h = arccosh(K)² =
-    (log σ₁/σ₂)². ``K = (σ₁² + σ₂²)/(2σ₁σ₂) = cosh(log(σ₁/σ₂))``;
-    values below 1 (round-off, or the ``det`` vs chordal-area gap on large faces) count
-    as 1.
+    ``"mips-bounded"`` (default): K − 1 up to ``SPHERE_SHEAR_KNEE``, then C¹ bounded;
+    ``"mips-log"``: the same, then C¹ logarithmic; ``"mips"``: h = K − 1 (Hormann &
+    Greiner 2000); ``"log"``: h = arccosh(K)² = (log σ₁/σ₂)².
+    ``K = (σ₁² + σ₂²)/(2σ₁σ₂) = cosh(log(σ₁/σ₂))``; values below 1 (round-off, or the
+    ``det`` vs chordal-area gap on large faces) count as 1.
     """
     t = np.maximum(K - 1.0, 0.0)
     form = _FORM[0]
@@ -320,7 +319,7 @@ def _shear(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         r = k0 / np.where(big, K, k0)
         h = np.where(big, (k0 - 1.0) + k0 * (1.0 - r), t)
         return h, np.where(big, r * r, 1.0)
-    ac = np.arccosh1p(t) if hasattr(np, "arccosh1p") else np.arccosh(1.0 + t)
+    ac = np.arccosh(1.0 + t)
     small = t < 1e-6
     safe = np.where(small, 1.0, t * (t + 2.0))
     dh = np.where(small, 2.0 - (2.0 / 3.0) * t, 2.0 * ac / np.sqrt(safe))
@@ -449,7 +448,6 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
                 hist_s.pop(0)
                 hist_y.pop(0)
         x, e, g = x_new, e_new, g_new
-        if _DEBUG: print('it', it, 't', t, 'e', e)
         energies.append(e)
         if len(energies) > window and energies[-1 - window] - e <= rel_tol * e + abs_tol:
             converged = True
