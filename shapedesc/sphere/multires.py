@@ -61,10 +61,20 @@ def _normalise(y: np.ndarray) -> np.ndarray:
     return y / np.linalg.norm(y, axis=1, keepdims=True)
 
 
-def _coarse_step(problem: AreaProblem, x: np.ndarray, surface_vertices: np.ndarray,
-                 level: int) -> tuple[np.ndarray, int]:
-    f = problem.faces
+def _grid(level: int):
+    """Icosphere of ``level``, its clamped cotangent Laplacian and its face ``det`` values
+    (the same for every correction on that level)."""
     cv, cf = icosphere(level)
+    cdet = np.einsum("ij,ij->i", cv[cf[:, 0]], np.cross(cv[cf[:, 1]], cv[cf[:, 2]]))
+    return level, cv, cf, clamped_cotangent_laplacian(cv, cf), cdet
+
+
+def _coarse_step(problem: AreaProblem, x: np.ndarray, e0: float, surface_vertices: np.ndarray,
+                 grid) -> tuple[np.ndarray, float, int]:
+    """One coarse correction on ``grid`` (from :func:`_grid`) of the map ``x`` with fine
+    energy ``e0``; returns the new map, its fine energy and the coarse iterations."""
+    f = problem.faces
+    level, cv, cf, lap, cdet_all = grid
     det = problem.dets(x)
     share = det / det.sum()
     # 1. surface-area share per coarse face; grid positions of the fine vertices
@@ -79,25 +89,23 @@ def _coarse_step(problem: AreaProblem, x: np.ndarray, surface_vertices: np.ndarr
     gi, gw = locate_on_sphere(x, f, np.concatenate([cv, ccen]))
     vi, w, gi = gi[:len(cv)], gw[:len(cv)], gi[len(cv):]
     if len(sparse):
-        cdet_all = np.einsum("ij,ij->i", cv[cf[:, 0]], np.cross(cv[cf[:, 1]], cv[cf[:, 2]]))
         mass[sparse] = problem.a[gi] / share[gi] * (cdet_all[sparse] / cdet_all.sum())
     cpos = np.einsum("nk,nki->ni", w, surface_vertices[f[vi]])
     coarse = AreaProblem(cpos, cf, shear_weight=problem.w,
-                         laplacian=clamped_cotangent_laplacian(cv, cf),
+                         laplacian=lap,
                          what=f"{problem.what} (level-{level} grid)", area_shares=mass)
     # 2. coarse solve from the identity
     res = correct_area(coarse, cv, max_iter=SPHERE_MULTIRES_COARSE_ITER, raise_on_budget=False)
     # 3. compose: fine vertices through the coarse piecewise-linear map
     disp = res.sphere_vertices - cv
-    e0 = problem.energy(x, det)
     t = 1.0
     for _ in range(8):
         x_new = _normalise(np.einsum("nk,nki->ni", tw, (cv + t * disp)[cf[ti]]))
         e_new = problem.energy(x_new)
         if e_new < e0:
-            return x_new, res.iterations
+            return x_new, e_new, res.iterations
         t *= 0.5
-    return x, res.iterations
+    return x, e0, res.iterations
 
 
 def correct_area_multires(problem: AreaProblem, x0: np.ndarray, *, surface_vertices: np.ndarray,
@@ -128,10 +136,10 @@ def correct_area_multires(problem: AreaProblem, x0: np.ndarray, *, surface_verti
     for level in levels:
         if 10 * 4**level + 2 > problem.n / SPHERE_MULTIRES_RATIO:
             break
+        grid = _grid(level)
         for _ in range(cycles):
-            x_new, it = _coarse_step(problem, x, surface_vertices, level)
+            x_new, e_new, it = _coarse_step(problem, x, e, surface_vertices, grid)
             iters += it
-            e_new = problem.energy(x_new)
             gain = (e - e_new) / max(e, 1e-300)
             if not e_new < e:
                 break
