@@ -210,7 +210,8 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
                        "stereographic": hs.coarse_flips_projected,
                        "pole_correction": hs.coarse_flips_corrected}
         refine_flips = _qc.count_flipped(x, f)
-    flips_mobius = _qc.count_flipped(x, f)
+    # with the coarse-to-fine start there is no Möbius step: its count is the start's
+    flips_mobius = refine_flips if crowded else _qc.count_flipped(x, f)
     t2 = time.perf_counter()
     t1 = t2 - t_centre
     L = clamped_cotangent_laplacian(vn, f)
@@ -230,8 +231,7 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     va_s = np.zeros(len(v))
     for k in range(3):
         va_s += np.bincount(f[:, k], weights=sph_area / 3, minlength=len(v))
-    va_o = vertex_areas(vn, f)
-    v_lr = np.log((va_s / va_s.sum()) / (va_o / va_o.sum()))
+    v_lr = np.log((va_s / va_s.sum()) / (va / va.sum()))
     t4 = time.perf_counter()
     stages = {**stage_flips, "mobius": flips_mobius, "refinement": refine_flips,
               "area_correction": res.n_flipped_max, "final": n_flip}
