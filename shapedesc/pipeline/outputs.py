@@ -244,13 +244,12 @@ def build_tables(items, entries: dict, failures: dict, extra_columns) -> dict:
                               "input": it.input_display, "stage": rec["stage"],
                               "error": rec["error"]})
     out["failures"] = (["subject", "structure", "input", "stage", "error"], fail_rows)
-    time_rows, data_rows = [], []
+    time_rows = []
     for it, key in items:
         rec = entries.get(key) or failures.get(key)
         if rec is None or not rec.get("timings"):
             continue
-        data_rows.append(rec["timings"])
         time_rows.append({**rec["timings"], "subject": it.subject, "structure": it.structure,
                           "status": "ok" if key in entries else "failed"})
-    out["timings"] = (_columns(data_rows, ["subject", "structure", "status"]), time_rows)
+    out["timings"] = (_columns(time_rows, ["subject", "structure", "status"]), time_rows)
     return out
