@@ -125,6 +125,12 @@ def _edges(f: np.ndarray) -> np.ndarray:
     return e[e[:, 0] < e[:, 1]]  # closed oriented mesh: each edge once
 
 
+def _adjacency(e: np.ndarray, n: int) -> sp.csr_matrix:
+    """Symmetric 0/1 vertex adjacency (n, n) of the undirected edges ``e`` (E, 2)."""
+    return sp.csr_matrix((np.ones(2 * len(e)), (np.r_[e[:, 0], e[:, 1]], np.r_[e[:, 1], e[:, 0]])),
+                         shape=(n, n))
+
+
 def _face_quadrics(v: np.ndarray, f: np.ndarray) -> np.ndarray:
     """Area-weighted plane quadrics summed at the vertices, shape (V, 4, 4) (Garland &
     Heckbert 1997)."""
@@ -160,8 +166,7 @@ def _collapse_round(v: np.ndarray, f: np.ndarray, q: np.ndarray, wanted: int, tr
     length = np.linalg.norm(v[e[:, 0]] - v[e[:, 1]], axis=1)
     rank = np.empty(len(e), np.int64)
     rank[np.lexsort((length, cost))] = np.arange(len(e))
-    adj = sp.csr_matrix((np.ones(2 * len(e)), (np.r_[e[:, 0], e[:, 1]], np.r_[e[:, 1], e[:, 0]])),
-                        shape=(nv, nv))
+    adj = _adjacency(e, nv)
     degree = np.diff(adj.indptr)
     # link condition (exactly two common neighbours) and valence, for every edge at once
     n_common_all = np.diff(adj[e[:, 0]].multiply(adj[e[:, 1]]).tocsr().indptr)
@@ -196,6 +201,7 @@ def _split(x: np.ndarray, f_fine: np.ndarray, a: np.ndarray, b: np.ndarray, *, w
     opp_sum = np.zeros((len(b), 3))
     ring_sum = np.zeros((len(b), 3))
     ring_n = np.zeros(len(b))
+    dist = np.full(len(b), np.inf)  # distance from a to its nearest other neighbour of b
     xa = x[a]
     for k in range(3):
         vk = fb[:, k]
@@ -205,14 +211,9 @@ def _split(x: np.ndarray, f_fine: np.ndarray, a: np.ndarray, b: np.ndarray, *, w
         np.add.at(opp_sum, owner[sel], d)
         np.add.at(ring_sum, owner[other], x[vk[other]])
         np.add.at(ring_n, owner[other], 1.0)
+        np.minimum.at(dist, owner[other], np.linalg.norm(x[vk[other]] - xa[owner[other]], axis=1))
     bis = _tangent_unit(xa, opp_sum)
     cen = _tangent_unit(xa, ring_sum / np.maximum(ring_n, 1)[:, None] - xa)
-    dist = np.full(len(b), np.inf)
-    for k in range(3):
-        vk = fb[:, k]
-        other = vk != b[owner]
-        np.minimum.at(dist, owner[other & (vk != a[owner])],
-                      np.linalg.norm(x[vk] - xa[owner], axis=1)[other & (vk != a[owner])])
     pending = np.ones(len(b), bool)
     out = np.empty((len(b), 3))
     # first choice: a and b both at the uniform (Tutte) average of their neighbours, the
@@ -220,8 +221,7 @@ def _split(x: np.ndarray, f_fine: np.ndarray, a: np.ndarray, b: np.ndarray, *, w
     # around a and b is positive. Moves a as well, which some splits need (a vertex left
     # with three neighbours must lie inside their triangle).
     e = _edges(f_fine)
-    adj = sp.csr_matrix((np.ones(2 * len(e)), (np.r_[e[:, 0], e[:, 1]], np.r_[e[:, 1], e[:, 0]])),
-                        shape=(nv, nv))
+    adj = _adjacency(e, nv)
     deg = np.diff(adj.indptr).astype(np.float64)
     x[b] = x[a]
     nbr = adj @ x
@@ -290,8 +290,7 @@ def _face_shares(fc: np.ndarray, mass: np.ndarray) -> np.ndarray:
 
 def _graph_laplacian(fc: np.ndarray, n: int) -> sp.csr_matrix:
     e = _edges(fc)
-    adj = sp.csr_matrix((np.ones(2 * len(e)), (np.r_[e[:, 0], e[:, 1]], np.r_[e[:, 1], e[:, 0]])),
-                        shape=(n, n))
+    adj = _adjacency(e, n)
     return (sp.diags(np.asarray(adj.sum(axis=1)).ravel()) - adj).tocsr()
 
 
