@@ -36,7 +36,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from ..defaults import SPHERE_LU_ORDERING, SPHERE_MIN_REL_DET, SPHERE_SHEAR_WEIGHT
-from ..errors import ConvergenceError, SphereMapError
+from ..errors import SphereMapError
 from ..mesh.measures import vertex_areas
 from . import qc as _qc
 from .area import AreaProblem
