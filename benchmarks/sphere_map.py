@@ -36,9 +36,9 @@ import time  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
-import scipy.sparse as sp  # noqa: E402
 import scipy.sparse.linalg as spla  # noqa: E402
 
+from shapedesc.defaults import SPHERE_SHEAR_WEIGHT  # noqa: E402
 from shapedesc.mesh.measures import vertex_areas  # noqa: E402
 from shapedesc.shapes import bent_tube, bumpy, ellipsoid, icosphere  # noqa: E402
 from shapedesc.sphere import map_to_sphere  # noqa: E402
@@ -83,7 +83,7 @@ def baseline(name, v, f, budget_cpu):
     vn = (v - v.mean(0)) / np.sqrt(np.mean(np.sum((v - v.mean(0)) ** 2, axis=1)))
     conf = conformal_sphere_map(vn, f, source=name)
     x, _ = mobius_centre(conf.sphere_vertices, vertex_areas(vn, f), what=name)
-    p = AreaProblem(vn, f, shear_weight=map_to_sphere.__kwdefaults__["shear_weight"], what=name)
+    p = AreaProblem(vn, f, shear_weight=SPHERE_SHEAR_WEIGHT, what=name)
     iters = 0
     while time.process_time() - t0 < budget_cpu:
         r = correct_area(p, x, max_iter=20, precondition=False, lbfgs=False,
