@@ -245,6 +245,10 @@ def test_bounded_shear_form_is_c1_at_the_knee_and_bounded(monkeypatch):
     np.testing.assert_allclose(fd, area_mod._shear(Kb)[1], rtol=1e-6)
 
 
+# The benchmark (benchmarks/sphere_map.py, isoperimetric_angle_estimate) computes the same
+# estimate; this copy is kept on purpose as the test's own reference, written separately
+# (orientations vectorised) and checked against the lead's hand values below, so that a
+# slip in either shows up instead of being shared.
 def _isoperimetric_angle_estimate_deg(a, n=801, n_phi=60):
     """Mean |Δangle| forced on the (a, 1, 1) ellipsoid by an exactly area-preserving map
     with uniform stretch along each cross-section loop (see benchmarks/sphere_map.py).
