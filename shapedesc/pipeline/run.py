@@ -182,10 +182,7 @@ def _execute(tasks: list[dict], *, jobs: int, scheduler: str | None):
         return
     if jobs <= 1:
         with one_blas_thread():   # once for the whole run, not per item
-            try:
-                import_chain()
-            except ImportError:   # pragma: no cover - the items report it as failures
-                pass
+            import_chain()
             for task in tasks:
                 yield compute_item(task)
         return
