@@ -200,7 +200,6 @@ def _most_regular_face(vertices: np.ndarray, faces: np.ndarray) -> int:
 
 def conformal_sphere_map(vertices: np.ndarray, faces: np.ndarray, *, source: str = "<memory>",
                          pole_fixed_fraction: float = SPHERE_POLE_FIXED_FRACTION,
-                         weight_vertices: np.ndarray | None = None,
                          laplacian: sp.spmatrix | None = None) -> ConformalResult:
     """Conformal map of a validated genus-0 mesh to the unit sphere (steps 1–3 above).
 
@@ -215,9 +214,6 @@ def conformal_sphere_map(vertices: np.ndarray, faces: np.ndarray, *, source: str
         Surface name for error messages.
     pole_fixed_fraction : float
         Share of vertices fixed in the pole correction.
-    weight_vertices : ndarray, shape (V, 3), optional
-        Geometry the Laplacian weights and the pinned triangle are taken from (default
-        ``vertices``).
     laplacian : sparse matrix, shape (V, V), optional
         Positive-weight Laplacian to use instead of the clamped cotangent one (the graph
         Laplacian of the coarse surface in :mod:`.hierarchy`); the map is then the
@@ -228,8 +224,6 @@ def conformal_sphere_map(vertices: np.ndarray, faces: np.ndarray, *, source: str
     ConformalResult
     """
     n = len(vertices)
-    if weight_vertices is not None:
-        vertices = weight_vertices
     L = (clamped_cotangent_laplacian(vertices, faces) if laplacian is None else
          sp.csr_matrix(laplacian)).tocsr()
     big = _most_regular_face(vertices, faces)
