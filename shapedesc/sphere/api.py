@@ -186,7 +186,9 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     vn = (v - v.mean(axis=0)) / np.sqrt(np.mean(np.sum((v - v.mean(axis=0)) ** 2, axis=1)))
 
     va = vertex_areas(vn, f)
-    conf = conformal_sphere_map(vn, f, source=source)
+    # one clamped cotangent Laplacian for the conformal step and the area correction
+    L = clamped_cotangent_laplacian(vn, f)
+    conf = conformal_sphere_map(vn, f, source=source, laplacian=L)
     tc = time.perf_counter()
     x, mob_it = mobius_centre(conf.sphere_vertices, va, what=f"{source}: Möbius centring")
     t_centre = time.perf_counter() - tc
@@ -214,7 +216,6 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     flips_mobius = refine_flips if crowded else _qc.count_flipped(x, f)
     t2 = time.perf_counter()
     t1 = t2 - t_centre
-    L = clamped_cotangent_laplacian(vn, f)
     problem = AreaProblem(vn, f, shear_weight=shear_weight, laplacian=L, what=source)
     res = correct_area_multires(problem, x, surface_vertices=vn)
     xs = res.sphere_vertices

@@ -215,9 +215,10 @@ def conformal_sphere_map(vertices: np.ndarray, faces: np.ndarray, *, source: str
     pole_fixed_fraction : float
         Share of vertices fixed in the pole correction.
     laplacian : sparse matrix, shape (V, V), optional
-        Positive-weight Laplacian to use instead of the clamped cotangent one (the graph
-        Laplacian of the coarse surface in :mod:`.hierarchy`); the map is then the
-        Tutte/Floater embedding with those weights, not a conformal map.
+        Positive-weight Laplacian (default: the clamped cotangent Laplacian of
+        ``vertices``, which a caller that has already built it may pass). With other
+        weights (the graph Laplacian of the coarse surface in :mod:`.hierarchy`) the map
+        is the Tutte/Floater embedding with those weights, not a conformal map.
 
     Returns
     -------
