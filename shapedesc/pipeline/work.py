@@ -215,6 +215,11 @@ class _Clock:
             self._add(self._stage, now_cpu, now_wall)
         self._stage, self._cpu, self._wall = stage, now_cpu, now_wall
 
+    @property
+    def stage(self) -> str | None:
+        """The stage running now (None before the first start and after stop)."""
+        return self._stage
+
     def _add(self, stage, now_cpu, now_wall):
         self.seconds[f"{stage}_cpu_s"] = self.seconds.get(f"{stage}_cpu_s", 0.0) + now_cpu - self._cpu
         self.seconds[f"{stage}_wall_s"] = self.seconds.get(f"{stage}_wall_s", 0.0) + now_wall - self._wall
@@ -252,9 +257,9 @@ def _coefficient_files(desc) -> dict[str, bytes]:
 
 
 def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
-    """The computation proper; raises ``_StageError`` naming the stage that failed."""
+    """The computation proper; raises ``_StageError`` naming the stage that failed (the
+    one ``clock`` was timing)."""
     params = task["parameters"]
-    stage = "read"
     timing: dict = {}
     try:
         clock.start("read")
@@ -267,7 +272,6 @@ def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
             from shapedesc.io.volumes import read_label_volume
 
             volume = read_label_volume(task["input"])
-            stage = "surface"
             clock.start("surface")
             from shapedesc.mesh.volume import label_to_surface
 
@@ -281,7 +285,6 @@ def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
                 {f"volume_{k}" if not str(k).startswith("volume_") else k: v
                  for k, v in report.to_row().items()}, "surface")
             timing.update(t)
-        stage = "prepare"
         clock.start("prepare")
         from shapedesc.mesh.repair import prepare_surface
 
@@ -291,12 +294,10 @@ def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
             # the coefficient file records the source: name the input as the user did
             surface = dataclasses.replace(
                 surface, source=surface.source.replace(task["input"], display))
-        stage = "map"
         clock.start("map")
         from shapedesc.sphere import map_to_sphere
 
         sphere_map = map_to_sphere(surface.vertices, surface.faces, source=surface.source)
-        stage = "describe"
         clock.start("describe")
         from shapedesc.descriptors import describe_surface
 
@@ -311,12 +312,11 @@ def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
                 "spectra_mm2": _plain_row(desc.spectrum_mm2_row()),
                 "shape": _plain_row(desc.shape_row()),
                 "qc": {**qc, **extra_qc}}
-        stage = "write"
         clock.start("write")
         files = _coefficient_files(desc)
         return rows, files, timing
     except Exception as exc:  # noqa: BLE001 - one bad subject must not stop the study
-        raise _StageError(stage, exc) from exc
+        raise _StageError(clock.stage, exc) from exc
 
 
 def _relocated(task: dict):
