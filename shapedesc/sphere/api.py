@@ -197,8 +197,7 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
                    "pole_correction": conf.flips_corrected}
     attempt = {"flips_planar": int(conf.flips_planar), "flips_projected": int(conf.flips_projected),
                "collapsed_faces": int(np.sum(det <= SPHERE_MIN_REL_DET * det.mean()))}
-    crowded = (conf.flips_planar != 0 or conf.flips_projected != 0
-               or det.min() <= SPHERE_MIN_REL_DET * det.mean())
+    crowded = any(attempt.values())
     initial = "conformal"
     refine_flips = 0
     if crowded:
