@@ -148,7 +148,8 @@ from ..errors import ConvergenceError
 from .laplacian import triangle_cotangents
 from .linsolve import factorise
 
-#: (form, knee) of the shear penalty, from defaults (a list so a benchmark can swap it)
+#: (form, knee) of the shear penalty, from defaults (a list so tests and measurements can
+#: swap it, e.g. ``monkeypatch.setattr(area, "_FORM", ["mips", 4.0])``)
 _FORM = [SPHERE_SHEAR_FORM, SPHERE_SHEAR_KNEE]
 __all__ = ["AreaProblem", "AreaResult", "correct_area"]
 
