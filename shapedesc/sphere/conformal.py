@@ -55,6 +55,7 @@ import scipy.sparse as sp
 from ..defaults import SPHERE_POLE_FIXED_FRACTION
 from .laplacian import clamped_cotangent_laplacian
 from .linsolve import factorise
+from .qc import sphere_face_det  # defined with the other QC measures; re-exported here
 
 __all__ = ["ConformalResult", "conformal_sphere_map", "inverse_stereographic",
            "stereographic", "beltrami_coefficient", "sphere_face_det"]
@@ -101,16 +102,6 @@ def stereographic(s: np.ndarray) -> np.ndarray:
     Inverse of :func:`inverse_stereographic`: ``(x, y, z) ↦ (x + iy)/(1 − z)``.
     """
     return (s[:, 0] + 1j * s[:, 1]) / (1.0 - s[:, 2])
-
-
-def sphere_face_det(sphere_vertices: np.ndarray, faces: np.ndarray) -> np.ndarray:
-    """Orientation ``det(a, b, c) = a · (b × c)`` of every face on the sphere, shape (F,).
-
-    Positive when the triangle is counter-clockwise seen from outside; a Möbius map or a
-    stereographic projection preserves its sign.
-    """
-    a, b, c = (sphere_vertices[faces[:, k]] for k in range(3))
-    return np.einsum("ij,ij->i", a, np.cross(b, c))
 
 
 def _planar_det(p: np.ndarray, faces: np.ndarray) -> np.ndarray:

@@ -21,7 +21,7 @@ import numpy as np
 from ..defaults import SPHERE_FLIP_DET
 
 __all__ = ["spherical_triangle_areas", "corner_angles", "face_log_area_ratio",
-           "angle_distortion_deg", "count_flipped", "vertex_mean"]
+           "angle_distortion_deg", "sphere_face_det", "count_flipped", "vertex_mean"]
 
 
 def spherical_triangle_areas(sphere_vertices: np.ndarray, faces: np.ndarray) -> np.ndarray:
@@ -61,10 +61,19 @@ def angle_distortion_deg(surface_vertices, sphere_vertices, faces) -> np.ndarray
                              - corner_angles(surface_vertices, faces)))
 
 
+def sphere_face_det(sphere_vertices: np.ndarray, faces: np.ndarray) -> np.ndarray:
+    """Orientation ``det(a, b, c) = a · (b × c)`` of every face on the sphere, shape (F,).
+
+    Positive when the triangle is counter-clockwise seen from outside; a Möbius map or a
+    stereographic projection preserves its sign.
+    """
+    a, b, c = (sphere_vertices[faces[:, k]] for k in range(3))
+    return np.einsum("ij,ij->i", a, np.cross(b, c))
+
+
 def count_flipped(sphere_vertices: np.ndarray, faces: np.ndarray) -> int:
     """Faces with ``det(a, b, c) <= SPHERE_FLIP_DET`` (clockwise seen from outside)."""
-    a, b, c = (sphere_vertices[faces[:, k]] for k in range(3))
-    return int(np.sum(np.einsum("ij,ij->i", a, np.cross(b, c)) <= SPHERE_FLIP_DET))
+    return int(np.sum(sphere_face_det(sphere_vertices, faces) <= SPHERE_FLIP_DET))
 
 
 def vertex_mean(faces: np.ndarray, per_corner: np.ndarray, n_vertices: int) -> np.ndarray:
