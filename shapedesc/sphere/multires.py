@@ -39,6 +39,7 @@ from ..defaults import (SPHERE_MULTIRES_COARSE_ITER, SPHERE_MULTIRES_CYCLES,
                         SPHERE_MULTIRES_MIN_GAIN, SPHERE_MULTIRES_RATIO)
 from ..shapes import icosphere
 from .area import AreaProblem, correct_area
+from .qc import sphere_face_det
 from .inverse import locate_on_sphere
 from .laplacian import clamped_cotangent_laplacian
 
@@ -65,8 +66,7 @@ def _grid(level: int):
     """Icosphere of ``level``, its clamped cotangent Laplacian and its face ``det`` values
     (the same for every correction on that level)."""
     cv, cf = icosphere(level)
-    cdet = np.einsum("ij,ij->i", cv[cf[:, 0]], np.cross(cv[cf[:, 1]], cv[cf[:, 2]]))
-    return level, cv, cf, clamped_cotangent_laplacian(cv, cf), cdet
+    return level, cv, cf, clamped_cotangent_laplacian(cv, cf), sphere_face_det(cv, cf)
 
 
 def _coarse_step(problem: AreaProblem, x: np.ndarray, e0: float, surface_vertices: np.ndarray,
