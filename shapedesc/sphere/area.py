@@ -327,10 +327,15 @@ def _shear(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ac**2, dh
 
 
-def _vdot(a: np.ndarray, b: np.ndarray) -> float:
+def _vdot(a: np.ndarray, b: np.ndarray, out: np.ndarray | None = None) -> float:
     """Inner product by numpy's own pairwise summation, not BLAS: the result does not
-    depend on how many threads a BLAS library would split the sum into."""
-    return float(np.sum(a * b))
+    depend on how many threads a BLAS library would split the sum into. ``out`` (same
+    shape, C-contiguous) is scratch space for the products; for C-ordered ``a``, ``b`` the
+    sum is bit for bit that of ``np.sum(a * b)`` (same values, same pairwise order)."""
+    if out is None:
+        return float(np.sum(a * b))
+    np.multiply(a, b, out=out)
+    return float(np.sum(out))
 
 
 def _cross(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -384,7 +389,10 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
     x = np.array(x0, dtype=np.float64)
     e, g = problem.energy_grad(x)
     e_start = e
-    hist_s, hist_y = [], []
+    # history pairs (s, y) with their sᵀy, each computed once when the pair is stored;
+    # ``tmp`` is scratch for the inner products and updates (no (V, 3) temporaries)
+    hist_s, hist_y, hist_sy = [], [], []
+    tmp = np.empty_like(x)
     energies = [e]
     it = 0
     gamma = None
@@ -394,35 +402,34 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
         # ---- two-loop recursion (Nocedal & Wright Alg. 7.4) with preconditioned H0
         q = g.copy()
         alphas = []
-        for s, y in zip(reversed(hist_s), reversed(hist_y)):
-            rho = 1.0 / _vdot(y, s)
-            a = rho * _vdot(s, q)
+        for s, y, sy in zip(reversed(hist_s), reversed(hist_y), reversed(hist_sy)):
+            a = (1.0 / sy) * _vdot(s, q, tmp)
             alphas.append(a)
-            q -= a * y
+            q -= np.multiply(a, y, out=tmp)
         r = problem.precondition(q, x) if precondition else q
         if hist_s:
             # scaling γ = sᵀy / yᵀH₀y of the initial inverse Hessian (Nocedal & Wright
             # eq. 7.20); with a preconditioner it costs a solve, so it is refreshed only
             # every few iterations (it changes slowly)
             if gamma is None or it % 8 == 0 or not precondition:
-                s, y = hist_s[-1], hist_y[-1]
+                y = hist_y[-1]
                 hy = problem.precondition(y, x) if precondition else y
-                gamma = _vdot(s, y) / _vdot(y, hy)
+                gamma = hist_sy[-1] / _vdot(y, hy, tmp)
             r *= gamma
         else:
             gamma = None
-        for (s, y), a in zip(zip(hist_s, hist_y), reversed(alphas)):
-            rho = 1.0 / _vdot(y, s)
-            b = rho * _vdot(y, r)
-            r += (a - b) * s
+        for s, y, sy, a in zip(hist_s, hist_y, hist_sy, reversed(alphas)):
+            b = (1.0 / sy) * _vdot(y, r, tmp)
+            r += np.multiply(a - b, s, out=tmp)
         d = -r
-        slope = _vdot(g, d)
+        slope = _vdot(g, d, tmp)
         if not slope < 0:  # not a descent direction: restart with the preconditioned gradient
             hist_s.clear()
             hist_y.clear()
+            hist_sy.clear()
             gamma = None
             d = -(problem.precondition(g, x) if precondition else g)
-            slope = _vdot(g, d)
+            slope = _vdot(g, d, tmp)
         if not hist_s:
             # first step of a (re)start: limit the largest vertex move to 0.05 rad
             t = min(1.0, 0.05 / max(np.sqrt(np.max(np.einsum("ij,ij->i", d, d))), 1e-300))
@@ -442,12 +449,15 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
             break  # no decrease possible at machine precision: stationary point
         s = x_new - x
         y = g_new - g
-        if _vdot(s, y) > 1e-12 * np.sqrt(_vdot(s, s) * _vdot(y, y)) and lbfgs:
+        sy = _vdot(s, y, tmp)
+        if sy > 1e-12 * np.sqrt(_vdot(s, s, tmp) * _vdot(y, y, tmp)) and lbfgs:
             hist_s.append(s)
             hist_y.append(y)
+            hist_sy.append(sy)
             if len(hist_s) > memory:
                 hist_s.pop(0)
                 hist_y.pop(0)
+                hist_sy.pop(0)
         x, e, g = x_new, e_new, g_new
         energies.append(e)
         if len(energies) > window and energies[-1 - window] - e <= rel_tol * e + abs_tol:
