@@ -83,3 +83,28 @@ def test_bad_points_refused():
         locate_on_sphere(s, f, np.zeros(3))
     with pytest.raises(ValueError, match="non-zero"):
         locate_on_sphere(s, f, np.zeros((1, 3)))
+
+
+def test_vertices_of_tiny_faces_are_located_despite_round_off():
+    # a map vertex lies in each of its own faces (its radial coordinates there are a unit
+    # vector, a fact of the construction); in floating point the zero coordinates come out
+    # at a few ulps of the unnormalised triple product, i.e. ~1e-16/Σ after normalising,
+    # which exceeds a fixed 1e-12 slack once Σ ~ 1e-5 (the smallest faces of a
+    # 40,000-vertex hemisphere map; measured there). A 30 × 30 grid patch 1e-3 rad wide
+    # (Σ ~ 1e-9) must still locate all of its own vertices, exactly.
+    rng = np.random.default_rng(5)
+    q, _ = np.linalg.qr(rng.normal(size=(3, 3)))
+    u, v = np.meshgrid(np.linspace(0, 1e-3, 30), np.linspace(0, 1e-3, 30), indexing="ij")
+    pts = q @ np.stack([u.ravel(), v.ravel(), np.ones(u.size)])
+    x = (pts / np.linalg.norm(pts, axis=0)).T
+    i = np.arange(29)[:, None] * 30 + np.arange(29)[None, :]
+    i = i.ravel()
+    f = np.concatenate([np.stack([i, i + 30, i + 31], 1), np.stack([i, i + 31, i + 1], 1)])
+    if np.einsum("ij,ij->i", x[f[:, 0]], np.cross(x[f[:, 1]], x[f[:, 2]])).min() < 0:
+        f = f[:, ::-1]
+    fi, w = locate_on_sphere(x, f, x)  # a fixed 1e-12 slack missed 83 of the 900 (measured)
+    own = f[fi] == np.arange(len(x))[:, None]
+    assert np.all(own.any(axis=1))  # each vertex in one of its own faces
+    # ... with weight 1 at its corner up to the coordinates' round-off, ~1e-16/Σ ≈ 1e-7
+    # here (measured 4e-8; 1e-6 leaves a margin)
+    assert w[own].min() > 1 - 1e-6

@@ -28,6 +28,11 @@ from ..errors import SphereMapError
 __all__ = ["locate_on_sphere", "pull_back", "radial_barycentric"]
 
 _INSIDE_TOL = 1e-12  # barycentric slack for points on edges (round-off of unit vectors)
+# ... plus this absolute slack on the unnormalised coordinates det(p, b, c), ...: a triple
+# product of unit vectors is computed to a few ulps (~2e-16 each; 4e-15 is ~18 ulps), which
+# on a small face (Σ ~ 1e-5 on a 40,000-vertex map) is more than _INSIDE_TOL after
+# normalising — measured: a map vertex missed all three of its own faces at −1.8e-12
+_DET_SLACK = 4e-15
 
 
 def radial_barycentric(a: np.ndarray, b: np.ndarray, c: np.ndarray, p: np.ndarray) -> np.ndarray:
@@ -35,12 +40,17 @@ def radial_barycentric(a: np.ndarray, b: np.ndarray, c: np.ndarray, p: np.ndarra
 
     All arrays shape (..., 3); returns (..., 3) summing to 1 (not clipped).
     """
+    return _radial_coordinates(a, b, c, p)[0]
+
+
+def _radial_coordinates(a, b, c, p):
+    """:func:`radial_barycentric` and the sum Σ of the unnormalised coordinates, (..., 1)."""
     wa = np.einsum("...i,...i->...", p, np.cross(b, c))
     wb = np.einsum("...i,...i->...", a, np.cross(p, c))
     wc = np.einsum("...i,...i->...", a, np.cross(b, p))
     w = np.stack([wa, wb, wc], axis=-1)
     s = w.sum(axis=-1, keepdims=True)
-    return w / np.where(s == 0, 1.0, s)
+    return w / np.where(s == 0, 1.0, s), s
 
 
 def locate_on_sphere(sphere_vertices: np.ndarray, faces: np.ndarray, points: np.ndarray, *,
@@ -95,9 +105,10 @@ def locate_on_sphere(sphere_vertices: np.ndarray, faces: np.ndarray, points: np.
             tri = faces[fc]
             p = pts[todo[left]]
             a, b, c = sv[tri[:, 0]], sv[tri[:, 1]], sv[tri[:, 2]]
-            w = radial_barycentric(a, b, c, p)
+            w, sw = _radial_coordinates(a, b, c, p)
             front = np.einsum("ij,ij->i", p, a + b + c) > 0
-            ok = (w.min(axis=1) >= -_INSIDE_TOL) & front
+            slack = _INSIDE_TOL + _DET_SLACK / np.maximum(np.abs(sw[:, 0]), 1e-300)
+            ok = (w.min(axis=1) >= -slack) & front
             face_index[todo[left[ok]]] = fc[ok]
             bary[todo[left[ok]]] = w[ok]
             left = left[~ok]
