@@ -182,9 +182,9 @@ SPHERE_SHEAR_WEIGHT: float = 0.12
 #: continuation (K0 − 1) + K0(1 − K0/K) beyond; default), "mips-log" (logarithmic beyond
 #: the knee), "mips" (K − 1; Hormann & Greiner 2000) or "log" ((log σ1/σ2)²). Pure "log"
 #: lost the demo study's known group effect (maps of similar shapes not consistent).
-#: Bounded vs log beyond the knee, MNI left putamen: SD 0.125 -> 0.105, 99th pct 0.42 ->
-#: 0.35 (the log branch's constant pull w·K0 on very sheared faces sets the tail); see
-#: shapedesc/sphere/area.py.
+#: Bounded vs log beyond the knee, MNI left putamen (with the former cone-volume area
+#: term): SD 0.125 -> 0.105, 99th pct 0.42 -> 0.35 (the log branch's constant pull w·K0
+#: on very sheared faces sets the tail); see shapedesc/sphere/area.py.
 SPHERE_SHEAR_FORM: str = "mips-bounded"
 #: Knee of the "mips-bounded"/"mips-log" shear forms (dimensionless MIPS distortion K; K = 4 is an
 #: anisotropy σ1/σ2 ≈ 7.9): below it the penalty is MIPS (K − 1), above it it continues

@@ -3,11 +3,12 @@
 Energy
 ------
 For face ``f`` with surface-area share ``a_f`` (Σ a_f = 1) and unit-sphere vertices
-``p, q, r`` let ``d_f = det(p, q, r)`` (six times the volume of the cone from the
-origin; equal to twice the spherical triangle area to second order in its size),
-``D = Σ d_f`` and ``ρ_f = (d_f/D)/a_f`` the area ratio (sphere share over surface
-share). With ``K_f`` the MIPS conformal distortion of the affine map from the surface
-triangle to the sphere triangle (Hormann & Greiner 2000),
+``p, q, r`` let ``Ω_f = 2·atan2(d_f, 1 + p·q + q·r + r·p)`` be its spherical-triangle
+area (solid angle; Van Oosterom & Strackee 1983), with ``d_f = det(p, q, r)`` (six times
+the volume of the cone from the origin), ``D = Σ Ω_f`` (4π for a map of degree one) and
+``ρ_f = (Ω_f/D)/a_f`` the area ratio (sphere share over surface share) — the same measure
+the QC reports (:mod:`.qc`). With ``K_f`` the MIPS conformal distortion of the affine map
+from the surface triangle to the chordal sphere triangle (Hormann & Greiner 2000),
 
     K_f = Σ_k cot θ_k |e_k|² / (2 d_f)   (θ_k surface angles, e_k opposite sphere edges),
 
@@ -26,9 +27,10 @@ with h(K) one of (``SPHERE_SHEAR_FORM``):
 * ``"log"``: ``arccosh(K)² = (log σ₁/σ₂)²``.
 
 ``ρ + 1/ρ = 2 cosh(log ρ)`` penalises expansion and compression symmetrically in the
-log ratio and grows without bound as ``d_f → 0⁺``: a triangle cannot degenerate or
-flip along a descent path. The area part equals ``D·Σ a_f²/d_f − 1`` (the authalic
-energy; zero iff every ``ρ_f = 1``, by Cauchy–Schwarz). For small shear
+log ratio and grows without bound as ``Ω_f → 0⁺`` (``Ω_f`` and ``d_f`` vanish together):
+a triangle cannot degenerate or flip along a descent path. The area part equals
+``D·Σ a_f²/Ω_f − 1`` (the authalic energy; zero iff every ``ρ_f = 1``, by
+Cauchy–Schwarz). For small shear
 ``K − 1 ≈ ½(log σ₁/σ₂)²``, so all the forms agree there up to a factor.
 
 Why the knee: thin parts of real structures *must* be sheared to be area-preserved on
@@ -53,7 +55,8 @@ form, not a second balance: ``w`` is the single balance parameter
 sampling, large shear on elongated shapes), large ``w`` tends to the conformal map (no
 shear, exponential area distortion).
 
-Why bounded beyond the knee (measured on the MNI left putamen, 4,964 vertices): with
+Why bounded beyond the knee (measured on the MNI left putamen, 4,964 vertices, with the
+``d_f`` area term of the next section; the percentiles below include its bias): with
 "mips-log" the faces whose log area ratio exceeds 0.3 (2.4 % of them, in a few
 patches of up to 126 faces, somewhat more often where the structure is thinner than
 2 mm) are extremely sheared: median K 47 (anisotropy ~90), up to K ≈ 1,100, against
@@ -77,6 +80,40 @@ at 5 % (putamen) and 0.5 % (hemisphere) of the mean.
 With the knee at 3 the bounded branch gives putamen SD 0.098, 1st/99th pct
 −0.26/0.34 (not adopted: it would put the demo's bent shapes on the new branch,
 inside the margin above the consistency cliff).
+
+Which area: spherical triangle, not cone volume
+-----------------------------------------------
+The area term used ``d_f`` in place of ``Ω_f`` until the tails on thin anatomy were
+traced to it: the two agree to second order in the triangle's size, but not on the
+long slivers that the sheared parts of thin structures become on the sphere. A wedge of
+opening ``ε`` and length ``L`` has ``d_f = ε·sin L`` but ``Ω_f = 2ε·tan(L/2)``, a ratio
+``1/cos²(L/2)`` that the ``d_f`` energy does not see. On the ``d_f``-optimised MNI left
+putamen the faces with log ratio > 0.3 (QC's exact measure) had sphere edges of median
+0.48 rad and up to 1.4 rad, and ``log(Ω_f/(d_f/2))`` up to 0.55 (above 0.05 on half of
+them); measured with ``d_f`` the same map's 99th percentile was 0.30, with ``Ω_f`` 0.35.
+Measured after the change (w = 0.12, bounded branch, knee 4; SD, 1st/99th percentile,
+mean angle °; MNI surfaces as ``tests/test_sphere_anatomy.py`` builds them):
+
+================  ==========================  ==========================
+surface           area term with ``d_f``      area term with ``Ω_f``
+================  ==========================  ==========================
+putamen left      0.105 −0.28/0.35 22.5       0.101 −0.31/0.27 23.6
+putamen right     0.100 −0.27/0.34 22.3       0.094 −0.26/0.29 23.0
+caudate left      0.052 −0.21/0.10 15.6       0.056 −0.22/0.10 15.8
+caudate right     0.051 −0.19/0.09 15.5       0.052 −0.19/0.09 15.6
+thalamus left     0.068 −0.24/0.16 15.7       0.068 −0.24/0.16 15.7
+thalamus right    0.069 −0.25/0.16 15.6       0.069 −0.25/0.16 15.6
+WM left (40k)     0.119 −0.30/0.37 20.5       0.111 −0.29/0.35 20.8
+6:1 ellipsoid     0.0985 −0.27/0.08 33.21     0.0977 −0.26/0.08 33.23
+3:1 bent tube     0.0473 −0.15/0.06 19.92     0.0468 −0.15/0.06 19.93
+bumpy             0.0271 −0.06/0.06 9.27      0.0272 −0.06/0.06 9.26
+================  ==========================  ==========================
+
+(synthetic shapes at level 4, as ``tests/test_sphere_map.py``.) The demo study at full
+size (15 per group, level 4): bent structure max |t| 19.1 → 19.6, 8 significant degrees
+both. Cost: three dot products and an ``arctan2`` per face; the 10,242-vertex bent tube's
+map took the same CPU time (0.57–0.59 s either way, load ~2). The shear term keeps
+``d_f``: ``K_f`` is the distortion of the affine map onto the chordal triangle.
 
 Area–angle frontier
 -------------------
@@ -235,8 +272,8 @@ class AreaProblem:
             det = _dot(pa, _cross(pb, pc))
         if det.min() <= 0.0:
             return np.inf
-        D = det.sum()
-        e = D * np.sum(self.a2 / det) - 1.0
+        om = 2.0 * np.arctan2(det, 1.0 + _dot(pa, pb) + _dot(pb, pc) + _dot(pc, pa))
+        e = om.sum() * np.sum(self.a2 / om) - 1.0
         if self.w:
             q = (self.cot[:, 0] * _sq(pc - pb) + self.cot[:, 1] * _sq(pa - pc)
                  + self.cot[:, 2] * _sq(pb - pa))
@@ -257,10 +294,16 @@ class AreaProblem:
             if allow_flip:
                 return np.inf, None
             raise ConvergenceError(f"{self.what}: area correction reached a flipped face")
-        D = det.sum()
-        S = np.sum(self.a2 / det)
+        # solid angle Ω = 2 atan2(det, den) (Van Oosterom & Strackee 1983) and its partials
+        den = 1.0 + _dot(pa, pb) + _dot(pb, pc) + _dot(pc, pa)
+        om = 2.0 * np.arctan2(det, den)
+        r2 = 2.0 / (det * det + den * den)
+        D = om.sum()
+        S = np.sum(self.a2 / om)
         e = D * S - 1.0
-        beta = S - D * self.a2 / det**2
+        beta = S - D * self.a2 / om**2  # dE/dΩ per face
+        bd = beta * den * r2  # ... times dΩ/d det
+        bn = (-beta * det * r2)[:, None]  # ... times dΩ/d den (d den/da = b + c, ...)
         if self.w:
             eab, ebc, eca = pb - pa, pc - pb, pa - pc
             c0, c1, c2 = self.cot[:, 0:1], self.cot[:, 1:2], self.cot[:, 2:3]
@@ -268,13 +311,15 @@ class AreaProblem:
             h, dh = _shear(q / (2.0 * det))
             e += self.w * np.sum(self.a * h)
             wad = self.w * self.a * dh  # d(shear)/dK per face, times w·a
-            beta = beta - wad * q / (2.0 * det**2)
+            bd = bd - wad * q / (2.0 * det**2)
             gam = (wad / det)[:, None]  # dK/dq = 1/(2 det), times 2 from d|e|²
-            ga = beta[:, None] * bxc + gam * (c1 * eca - c2 * eab)
-            gb = beta[:, None] * cxa + gam * (c0 * (-ebc) + c2 * eab)
-            gc = beta[:, None] * axb + gam * (c0 * ebc - c1 * eca)
+            bd = bd[:, None]
+            ga = bd * bxc + bn * (pb + pc) + gam * (c1 * eca - c2 * eab)
+            gb = bd * cxa + bn * (pc + pa) + gam * (c0 * (-ebc) + c2 * eab)
+            gc = bd * axb + bn * (pa + pb) + gam * (c0 * ebc - c1 * eca)
         else:
-            ga, gb, gc = beta[:, None] * bxc, beta[:, None] * cxa, beta[:, None] * axb
+            bd = bd[:, None]
+            ga, gb, gc = bd * bxc + bn * (pb + pc), bd * cxa + bn * (pc + pa), bd * axb + bn * (pa + pb)
         g = self.scatter @ np.concatenate([ga, gb, gc])
         g -= np.einsum("ij,ij->i", g, x)[:, None] * x
         return float(e), g
