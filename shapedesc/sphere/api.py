@@ -16,9 +16,13 @@ correction then repairs them: the acceptance asks for 0 flipped triangles at *ev
 stage, and a flip there means the puncture's neighbourhood is crowded to the edge of
 double precision. The MNI left caudate is such a case (2 flips after projection, 0 after
 the pole correction, smallest ``det`` 1.6e-12 of the mean, just above
-``SPHERE_MIN_REL_DET``); measured, the two starts give the same map quality (conformal:
-SD 0.053, 1st/99th pct −0.20/0.09, 15.6°, 3.0 s CPU; coarse-to-fine: SD 0.052,
-−0.21/0.10, 15.6°, 4.0 s), so the strict rule costs ~1 s there and nothing in quality.
+``SPHERE_MIN_REL_DET``); measured, the two starts give the same map (conformal:
+SD 0.053, 1st/99th pct −0.20/0.09, 15.6°; coarse-to-fine: SD 0.055, −0.21/0.10, 15.6°;
+the two maps 0.7° apart on average after the best rotation), so the strict rule costs
+about a second there and nothing in quality. That the starts agree is what makes
+subjects that took different starts comparable; it holds because the coarse-to-fine
+start uses the pure area energy on its coarse levels (see :mod:`.hierarchy`; with shear
+there, elongated shapes went to a different, "winding" minimum).
 
 The map depends only on the intrinsic geometry of the surface (edge lengths, angles,
 areas) and on the face order: rotating or translating the surface leaves the sphere
@@ -204,7 +208,7 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
         # the conformal map crowds below double precision: switch, once, to the
         # coarse-to-fine start (see .hierarchy for why no other harmonic map would do)
         initial = "coarse-to-fine"
-        hs = coarse_to_fine_map(vn, f, shear_weight=shear_weight, what=source)
+        hs = coarse_to_fine_map(vn, f, what=source)
         x = hs.sphere_vertices
         mob_it = 0
         stage_flips = {"harmonic_plane": hs.coarse_flips_planar,

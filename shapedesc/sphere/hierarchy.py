@@ -37,8 +37,9 @@ What does work is not to ask one linear solve for the whole dynamic range:
    whose map has no flipped face at any stage and every ``det`` above
    ``SPHERE_MIN_REL_DET`` of the mean — by the Tutte embedding with uniform weights
    (the coarse geometry is a rough sub-sample; the graph is what matters), centre it
-   (Möbius, with the carried areas) and area-correct it (area shares from the carried
-   areas, shear from the coarse geometry).
+   (Möbius, with the carried areas) and area-correct it with the *pure area* energy
+   (``w = 0``: area shares from the carried areas, no shear term; see "Why no shear on
+   the coarse levels" below).
 3. **Refine** round by round in reverse: every removed vertex ``b`` is re-inserted next
    to the vertex ``a`` it was collapsed into, moved from ``a`` along a tangent
    direction into the wedge between the two vertices opposite the edge ``ab`` (the
@@ -48,12 +49,39 @@ What does work is not to ask one linear solve for the whole dynamic range:
    to the faces around ``a``, which are positive), so each refinement is bijective
    (vertex splits as in the progressive-mesh parameterisations of Praun & Hoppe 2003).
    Whenever the mesh has grown by ``SPHERE_HIERARCHY_GROWTH`` since the last time, a
-   few (``SPHERE_HIERARCHY_ITER``) iterations of the bijective area correction
-   (:mod:`.area`) on the current level even out the new, small triangles, so the
-   nesting of splits never compounds into exponential compression.
+   few (``SPHERE_HIERARCHY_ITER``) iterations of the bijective pure-area correction
+   (:mod:`.area` with ``w = 0``) on the current level even out the new, small
+   triangles, so the nesting of splits never compounds into exponential compression.
 
 The result, a bijective map of the full mesh with representable triangles, is the
-start of the usual multiresolution area correction. Everything is deterministic (no
+start of the usual multiresolution area correction (with the caller's shear weight).
+
+Why no shear on the coarse levels
+---------------------------------
+The area/shear energy has more than one minimum on elongated shapes: besides the
+"polar" map that the descent from the centred conformal map reaches (the long axis
+runs pole to pole), a map whose tube *winds* around the sphere like a strip has less
+shear and a lower energy (demo-study arc, w = 0.12: E 0.043, area SD 0.149, 12.6°,
+against the polar map's E 0.085, SD 0.077, 28.7°). Which one a descent reaches depends
+on its start, and the winding has no canonical direction, so maps of similar shapes
+that took different starts are not comparable: forcing the coarse-to-fine start on 10
+demo arcs gave maps 27–35° (mean over vertices, after the best rotation) away from
+their conformal-start maps in 9 of them, and log spectra differing by 2–6 (degrees
+2–15), 8–31 times the between-subject SD. The coarse levels' geometry is a crude
+sub-sample whose thin parts QEM has shortened, so its angles are no reference for a
+shear term, and with one the coarse descent went winding (the tips of a demo arc
+156° → 80° apart on the sphere in the coarse level's correction). Pure area there
+gives the same polar map as the conformal start (mean difference 0.2–1.6° on the same
+10 arcs and 0.8° on a 6:1 ellipsoid, same QC), and a better start for real anatomy
+(measured with the cone-volume area term, then with the spherical-area one of
+:mod:`.area`): MNI left putamen area SD 0.105 → 0.092, 1st/99th percentiles
+−0.28/0.35 → −0.24/0.29 (spherical: 0.101, −0.31/0.27 → 0.092, −0.26/0.29);
+40,000-vertex white-matter hemisphere SD 0.119 → 0.089, −0.30/0.37 → −0.24/0.27
+(spherical: 0.111, −0.29/0.35 → 0.093, −0.26/0.28); caudate 0.052 → 0.055, thalamus
+forced to this start 0.071 both. Only the final
+multiresolution correction of the full mesh uses the caller's ``shear_weight``.
+
+Everything is deterministic (no
 random numbers; ties broken by index). It is used only when the conformal start is
 crowded (see :func:`shapedesc.sphere.api.map_to_sphere`); the QC records which start
 was used.
@@ -294,19 +322,19 @@ def _graph_laplacian(fc: np.ndarray, n: int) -> sp.csr_matrix:
     return (sp.diags(np.asarray(adj.sum(axis=1)).ravel()) - adj).tocsr()
 
 
-def _relax(v, x, f, mass, iters, what, shear_weight):
-    """A few bijective area-correction iterations on the level with faces ``f`` (in place)."""
+def _relax(v, x, f, mass, iters, what):
+    """A few bijective pure-area (``w = 0``) iterations on the level with faces ``f`` (in place)."""
     ids, fc = _compact(f, len(v))
     vc = v[ids]
-    p = AreaProblem(vc, fc, shear_weight=shear_weight, area_shares=_face_shares(fc, mass[ids]),
+    p = AreaProblem(vc, fc, shear_weight=0.0, area_shares=_face_shares(fc, mass[ids]),
                     laplacian=clamped_cotangent_laplacian(vc, fc), what=what)
     r = correct_area(p, x[ids], max_iter=iters, raise_on_budget=False)
     x[ids] = r.sphere_vertices
     return r.iterations
 
 
-def coarse_to_fine_map(vertices: np.ndarray, faces: np.ndarray, *, shear_weight: float,
-                       what: str, coarse_vertices=SPHERE_HIERARCHY_COARSE_VERTICES,
+def coarse_to_fine_map(vertices: np.ndarray, faces: np.ndarray, *, what: str,
+                       coarse_vertices=SPHERE_HIERARCHY_COARSE_VERTICES,
                        growth: float = SPHERE_HIERARCHY_GROWTH,
                        iterations: int = SPHERE_HIERARCHY_ITER) -> HierarchyStart:
     """Bijective start map of a validated genus-0 mesh by coarsening and vertex splits.
@@ -317,8 +345,6 @@ def coarse_to_fine_map(vertices: np.ndarray, faces: np.ndarray, *, shear_weight:
         Normalised surface coordinates.
     faces : ndarray, shape (F, 3), int64
         Outward, closed, genus 0 (checked by :mod:`.topology`).
-    shear_weight : float
-        ``w`` of the area/shear energy used on the coarse and intermediate levels.
     what : str
         Surface name for error messages.
     coarse_vertices : sequence of int
@@ -384,7 +410,7 @@ def coarse_to_fine_map(vertices: np.ndarray, faces: np.ndarray, *, shear_weight:
     x[ids] = xc
     n_active = len(ids)
     total = _relax(v, x, g, mass, 10 * iterations,
-                   f"{what} (coarse-to-fine start, coarse level)", shear_weight)
+                   f"{what} (coarse-to-fine start, coarse level)")
     last = n_active
     for g_fine, a, b, mb in reversed(levels):
         _split(x, g_fine, a, b, what=what)
@@ -393,8 +419,7 @@ def coarse_to_fine_map(vertices: np.ndarray, faces: np.ndarray, *, shear_weight:
         n_active += len(a)
         if n_active >= growth * last or n_active == nv:
             total += _relax(v, x, g_fine, mass, iterations,
-                            f"{what} (coarse-to-fine start, {n_active}-vertex level)",
-                            shear_weight)
+                            f"{what} (coarse-to-fine start, {n_active}-vertex level)")
             last = n_active
     return HierarchyStart(x, len(ids), len(levels), total, conf.flips_planar,
                           conf.flips_projected, conf.flips_corrected)
