@@ -262,12 +262,12 @@ class AreaProblem:
     # ------------------------------------------------------------------ energy
     def dets(self, x: np.ndarray) -> np.ndarray:
         f = self.faces
-        return _dot(x[f[:, 0]], _cross(x[f[:, 1]], x[f[:, 2]]))
+        return _dot(_take(x, f[:, 0]), _cross(_take(x, f[:, 1]), _take(x, f[:, 2])))
 
     def energy(self, x: np.ndarray, det: np.ndarray | None = None) -> float:
         """Energy at unit vectors ``x`` (V, 3); ``inf`` when a face has ``d_f <= 0``."""
         f = self.faces
-        pa, pb, pc = x[f[:, 0]], x[f[:, 1]], x[f[:, 2]]
+        pa, pb, pc = _take(x, f[:, 0]), _take(x, f[:, 1]), _take(x, f[:, 2])
         if det is None:
             det = _dot(pa, _cross(pb, pc))
         if det.min() <= 0.0:
@@ -287,7 +287,7 @@ class AreaProblem:
         (the line search's trial points).
         """
         f = self.faces
-        pa, pb, pc = x[f[:, 0]], x[f[:, 1]], x[f[:, 2]]
+        pa, pb, pc = _take(x, f[:, 0]), _take(x, f[:, 1]), _take(x, f[:, 2])
         bxc, cxa, axb = _cross(pb, pc), _cross(pc, pa), _cross(pa, pb)
         det = _dot(pa, bxc)
         if det.min() <= 0.0:
@@ -381,6 +381,12 @@ def _vdot(a: np.ndarray, b: np.ndarray, out: np.ndarray | None = None) -> float:
         return float(np.sum(a * b))
     np.multiply(a, b, out=out)
     return float(np.sum(out))
+
+
+def _take(x: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """Rows ``x[index]`` (the same values), by ``np.take``: 3-5x faster than fancy
+    indexing for (n, 3) gathers (measured at 160k vertices)."""
+    return np.take(x, index, axis=0)
 
 
 def _cross(a: np.ndarray, b: np.ndarray) -> np.ndarray:
