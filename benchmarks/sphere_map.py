@@ -16,11 +16,18 @@ run:
   and the bent tube, beside the isoperimetric estimate of the angle distortion that exact
   area preservation forces (``--tradeoff`` prints only that table).
 
+* with ``--baseline DIR`` (a frozen copy of another checkout, e.g. ``git worktree add
+  /tmp/base main``): every map case is run in a fresh process with ``PYTHONPATH=DIR``
+  and in one with this checkout, alternating (``--repeat`` times; the smallest CPU time
+  of each is reported), so old and new code are timed side by side under the same load;
+  the rows also say whether the two maps are bit-identical.
+
 Targets (issue 4): 20,000 vertices <= 3 s and 160,000 vertices <= 30 s. Times are CPU
 seconds of this process (``time.process_time``) beside wall seconds: the machine is
 shared, so wall time includes waiting for the core.
 
-Usage: ``python benchmarks/sphere_map.py [--quick] [--no-large] [--no-anatomy] [--tradeoff]``
+Usage: ``python benchmarks/sphere_map.py [--quick] [--no-large] [--no-anatomy] [--tradeoff]
+[--baseline DIR [--repeat N] [--only NAME ...]]``
 """
 
 from __future__ import annotations
@@ -31,7 +38,11 @@ for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ[_var] = "1"  # one core, before numpy is imported
 
 import argparse  # noqa: E402
+import hashlib  # noqa: E402
 import json  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+import tempfile  # noqa: E402
 import time  # noqa: E402
 from pathlib import Path  # noqa: E402
 
@@ -60,6 +71,20 @@ def _shapes(freq):
     }
 
 
+def _study_item():
+    """The first surface of benchmarks/pipeline_throughput.py's study (seed 7, 10,242
+    vertices, float32 coordinates as read back from its GIFTI file): the map whose CPU
+    time is the study throughput's margin."""
+    u, f = icosphere(frequency=32)
+    rng = np.random.default_rng(7)
+    axes = np.array([14.0, 7.0, 5.0]) * (1 + 0.1 * rng.normal(size=3))
+    x, y, z = u.T
+    bump = 0.6 * rng.normal(size=4)
+    r = 1 + 0.05 * (bump[0] * x * y + bump[1] * y * z + bump[2] * (x * x - y * y)
+                    + bump[3] * x * z)
+    return (u * axes * r[:, None]).astype(np.float32).astype(np.float64), f
+
+
 def _row(name, v, f, m, cpu, wall):
     q = m.qc
     return {"shape": name, "n_vertices": len(v), "flips_all_stages": int(max(q.flips_per_stage.values())),
@@ -75,6 +100,40 @@ def run_map(name, v, f):
     t0, w0 = time.process_time(), time.perf_counter()
     m = map_to_sphere(v, f, source=name)
     return m, _row(name, v, f, m, time.process_time() - t0, time.perf_counter() - w0)
+
+
+def _run_one(path):
+    """Child process of ``--baseline``: map the surface in ``path`` (npz: v, f, name) with
+    whichever ``shapedesc`` is first on sys.path; print the row as JSON."""
+    import shapedesc
+
+    d = np.load(path)
+    name = str(d["name"])
+    m, row = run_map(name, d["v"], d["f"])
+    row["code"] = str(Path(shapedesc.__file__).parent.parent)
+    row["sha1"] = hashlib.sha1(np.ascontiguousarray(m.sphere_vertices).tobytes()).hexdigest()
+    print(json.dumps(row))
+
+
+def run_pair(name, v, f, baseline_dir, repeat):
+    """Rows of ``name`` mapped by the baseline tree and by this checkout, each in a fresh
+    process, alternating ``repeat`` times; the smallest CPU time of each."""
+    here = str(Path(__file__).resolve().parent.parent)
+    rows = {"baseline": [], "ours": []}
+    with tempfile.TemporaryDirectory() as tmp:
+        path = os.path.join(tmp, "surface.npz")
+        np.savez(path, v=v, f=f, name=name)
+        for _ in range(repeat):
+            for key, src in (("baseline", baseline_dir), ("ours", here)):
+                env = dict(os.environ, PYTHONPATH=src)
+                out = subprocess.run([sys.executable, __file__, "--run-one", path], env=env,
+                                     capture_output=True, text=True, check=True, cwd=tmp)
+                rows[key].append(json.loads(out.stdout.strip().splitlines()[-1]))
+    best = {k: min(r, key=lambda row: row["cpu_s"]) for k, r in rows.items()}
+    for k, r in rows.items():
+        best[k]["cpu_s_all"] = [row["cpu_s"] for row in r]
+        best[k]["repeat_identical"] = len({row["sha1"] for row in r}) == 1
+    return best["baseline"], best["ours"]
 
 
 def baseline(name, v, f, budget_cpu):
@@ -220,7 +279,19 @@ def main(argv=None):
     ap.add_argument("--no-anatomy", action="store_true", help="skip the MNI template surfaces")
     ap.add_argument("--tradeoff", action="store_true",
                     help="only the area-SD vs angle table over the shear weight")
+    ap.add_argument("--baseline", metavar="DIR",
+                    help="also map every case with the package source in DIR (side by side)")
+    ap.add_argument("--repeat", type=int, default=1,
+                    help="with --baseline: runs of each code per case (smallest CPU kept)")
+    ap.add_argument("--only", nargs="+", metavar="NAME",
+                    help="with --baseline: only the cases whose name contains one of these")
+    ap.add_argument("--run-one", metavar="NPZ", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
+    if args.run_one:
+        _run_one(args.run_one)
+        return 0
+    if args.baseline:
+        return compare_with_baseline(args)
     results = {"maps": [], "baseline": [], "factorisation": {}, "tradeoff": [],
                "targets_s": {"20k": 3.0, "160k": 30.0}}
     print("area SD vs mean angle distortion over the shear weight w (level 4, 2,562 vertices);"
@@ -295,6 +366,44 @@ def main(argv=None):
                   f"({fb[f'{key}_s'] / fb['MMD_AT_PLUS_A_sym_s']:.1f}x the symmetric-mode time)")
     _write(results)
     print(f"\nwrote {OUT}")
+    return 0
+
+
+def compare_with_baseline(args):
+    """``--baseline``: the map cases only, each by both codes, side by side."""
+    cases = [(n, *_shapes(45)[n]()) for n in (["bent tube 3:1"] if args.quick else _shapes(45))]
+    cases.insert(0, ("blob 10k (study)", *_study_item()))
+    if not (args.quick or args.no_large):
+        cases.append(("bent tube 3:1", *_shapes(127)["bent tube 3:1"]()))
+    if not (args.quick or args.no_anatomy):
+        for n, (v, f) in anatomy_surfaces([("caudate_left", None), ("putamen_left", None),
+                                          ("thalamus_left", None), ("wm_left", 40000)]).items():
+            cases.append((n, v, f))
+    if args.only:
+        cases = [c for c in cases if any(k in c[0] for k in args.only)]
+    results = {"baseline_dir": args.baseline, "repeat": args.repeat, "pairs": []}
+    out = OUT.with_name("sphere_map_vs_baseline.json")
+    print(f"baseline: {args.baseline}; CPU s = smallest of {args.repeat} run(s) per code, "
+          f"alternating; load average at start {os.getloadavg()}")
+    print(f"{'shape':18s} {'V':>7s} {'code':8s} {'flips':>5s} {'SD':>7s} {'p1':>7s} {'p99':>7s} "
+          f"{'angle°':>7s} {'iter':>5s} {'cpu s':>7s}  start   (load)")
+    for name, v, f in cases:
+        base, ours = run_pair(name, v, f, args.baseline, args.repeat)
+        for label, row in (("baseline", base), ("ours", ours)):
+            print(f"{name:18s} {len(v):7d} {label:8s} {row['flips_all_stages']:5d} "
+                  f"{row['area_log_sd']:7.4f} {row['area_log_p01']:7.3f} {row['area_log_p99']:7.3f} "
+                  f"{row['angle_mean_deg']:7.2f} {row['iterations']:5d} {row['cpu_s']:7.2f}  "
+                  f"{row['initial_map']}  ({os.getloadavg()[0]:.1f})")
+        same = base["sha1"] == ours["sha1"]
+        print(f"{'':18s} {'':7s} ratio ours/baseline CPU {ours['cpu_s'] / base['cpu_s']:.2f}; "
+              f"maps {'bit-identical' if same else 'differ'}; repeats identical: "
+              f"{base['repeat_identical']} / {ours['repeat_identical']}")
+        results["pairs"].append({"shape": name, "n_vertices": len(v), "baseline": base,
+                                 "ours": ours, "bit_identical": same,
+                                 "load_after": os.getloadavg()})
+        OUT.parent.mkdir(parents=True, exist_ok=True)
+        out.write_text(json.dumps(results, indent=2))
+    print(f"\nwrote {out}")
     return 0
 
 

@@ -288,12 +288,13 @@ class AreaProblem:
         """
         f = self.faces
         pa, pb, pc = _take(x, f[:, 0]), _take(x, f[:, 1]), _take(x, f[:, 2])
-        bxc, cxa, axb = _cross(pb, pc), _cross(pc, pa), _cross(pa, pb)
+        bxc = _cross(pb, pc)
         det = _dot(pa, bxc)
-        if det.min() <= 0.0:
+        if det.min() <= 0.0:  # (before the other two cross products: a rejected trial)
             if allow_flip:
                 return np.inf, None
             raise ConvergenceError(f"{self.what}: area correction reached a flipped face")
+        cxa, axb = _cross(pc, pa), _cross(pa, pb)
         # solid angle Ω = 2 atan2(det, den) (Van Oosterom & Strackee 1983) and its partials
         den = 1.0 + _dot(pa, pb) + _dot(pb, pc) + _dot(pc, pa)
         om = 2.0 * np.arctan2(det, den)
