@@ -322,7 +322,7 @@ def describe_surface(surface: Surface, *, degree: int = defaults.DEFAULT_DEGREE,
     seconds["fit"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
-    volume = measures.enclosed_volume(v, f)
+    volume, _, cov = measures.solid_moments(v, f)  # volume equal to enclosed_volume's
     pose = canonical_pose(native, surface_vertices=v, surface_weights=weights,
                           scale_method=scale, volume_mm3=volume, area_mm2=area)
     for w in pose.warnings:
@@ -350,7 +350,6 @@ def describe_surface(surface: Surface, *, degree: int = defaults.DEFAULT_DEGREE,
     rv, rf = _measure_surface(native, degree, defaults.MEASURE_ICOSPHERE_LEVEL)
     fit_volume = measures.enclosed_volume(rv, rf)
     fit_area = measures.surface_area(rv, rf)
-    _, _, cov = measures.solid_moments(v, f)
     lam = np.sort(np.clip(np.linalg.eigvalsh(cov), 0, None))[::-1]
     indices = ShapeIndices(
         volume_mm3=volume,

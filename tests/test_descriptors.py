@@ -126,6 +126,8 @@ def test_solid_moments_closed_form():
     # polyhedron's shortfall from the ellipsoid.
     np.testing.assert_allclose(np.diag(cov), np.array([9.0, 4.0, 1.0]) / 5, rtol=2e-3)
     np.testing.assert_allclose(cen, [1.0, 2.0, 3.0], atol=1e-9)
+    # describe takes the volume from solid_moments: it must be enclosed_volume's, bit for bit
+    assert vol == measures.enclosed_volume(v + [1.0, 2.0, 3.0], f)
 
 
 def test_scale_normalisation_and_pose_outputs(tmp_path):

@@ -117,8 +117,9 @@ def solid_moments(vertices: np.ndarray, faces: np.ndarray) -> tuple[float, np.nd
     a = vertices[faces[:, 0]] - ref
     b = vertices[faces[:, 1]] - ref
     c = vertices[faces[:, 2]] - ref
-    vol = np.einsum("ij,ij->i", a, np.cross(b, c)) / 6.0
-    total = vol.sum()
+    six_vol = np.einsum("ij,ij->i", a, np.cross(b, c))
+    vol = six_vol / 6.0
+    total = six_vol.sum() / 6.0  # the same expression as enclosed_volume: equal bit for bit
     s = a + b + c
     first = (vol[:, None] * s).sum(axis=0) / 4.0
     # Σ_t vol_t p_t p_tᵀ as (3, F) x (F, 3) matrix products (einsum over t is ~4x slower)
