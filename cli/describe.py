@@ -48,6 +48,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         "area (default volume)")
     p.add_argument("--smoothing", type=float, default=0.0, metavar="S",
                    help="heat-kernel smoothing bandwidth of the fit (default 0: none)")
+    p.add_argument("--sphere-maps", action="store_true",
+                   help="also write each item's sphere map and per-vertex area/angle "
+                        "distortion (GIFTI: _surface.surf.gii, _sphere.surf.gii, "
+                        "_distortion.shape.gii) into OUTDIR/coefficients/, for figures")
     p.add_argument("--jobs", type=int, default=1, metavar="N",
                    help="local worker processes (default 1)")
     p.add_argument("--scheduler", metavar="ADDR",
@@ -104,7 +108,7 @@ def run(args: argparse.Namespace) -> int:
                              structures=args.structures, subject_column=args.subject_column,
                              input_column=args.input_column)
     params = DescribeParameters(degree=args.degree, scale=args.scale,
-                                smoothing=args.smoothing)
+                                smoothing=args.smoothing, sphere_maps=args.sphere_maps)
     reporter = ProgressReporter(stream=sys.stderr)
     try:
         result = run_study(manifest, args.outdir, parameters=params, jobs=args.jobs,

@@ -154,6 +154,44 @@ def test_rerun_computes_nothing_and_writes_identical_bytes(tmp_path):
     assert "s01" not in (out / "spectra.tsv").read_text()
 
 
+def test_sphere_maps_are_written_for_figures_and_reproducible(tmp_path):
+    manifest = read_manifest(make_study(tmp_path / "study", n=2, bad=False))
+    out = tmp_path / "out"
+    run_study(manifest, out, parameters=DescribeParameters(degree=4, sphere_maps=True))
+    folder = out / "coefficients"
+    surf = nib.load(folder / "s00_blob_surface.surf.gii")   # read back with nibabel
+    sph = nib.load(folder / "s00_blob_sphere.surf.gii")
+    dist = nib.load(folder / "s00_blob_distortion.shape.gii")
+    v, f = (surf.agg_data("NIFTI_INTENT_POINTSET"), surf.agg_data("NIFTI_INTENT_TRIANGLE"))
+    x, g = (sph.agg_data("NIFTI_INTENT_POINTSET"), sph.agg_data("NIFTI_INTENT_TRIANGLE"))
+    assert np.array_equal(f, g) and x.shape == v.shape
+    np.testing.assert_allclose(np.linalg.norm(x, axis=1), 1.0, atol=1e-6)  # float32 unit vectors
+    names = [da.meta["Name"] for da in dist.darrays]
+    assert names == ["area_log_ratio", "angle_distortion_deg"]
+    lr, ang = (da.data for da in dist.darrays)
+    assert lr.shape == ang.shape == (len(v),) and np.all(ang >= 0)
+    # the area map recomputed from the two saved meshes, a third of each face's area to
+    # its vertices: trimesh's face areas on the surface, solid angles (Van Oosterom &
+    # Strackee 1983) on the sphere; 1e-4: float32 storage of both meshes
+    a, b, c = (x[f[:, k]].astype(np.float64) for k in range(3))
+    a, b, c = (u / np.linalg.norm(u, axis=1, keepdims=True) for u in (a, b, c))
+    omega = 2 * np.arctan2(np.einsum("ij,ij->i", a, np.cross(b, c)),
+                           1 + (a * b).sum(1) + (b * c).sum(1) + (c * a).sum(1))
+    areas = [trimesh.Trimesh(v, f, process=False).area_faces, omega]
+    va = [np.bincount(f.ravel(), np.repeat(ar / 3, 3), len(v)) for ar in areas]
+    np.testing.assert_allclose(lr, np.log((va[1] / va[1].sum()) / (va[0] / va[0].sum())),
+                               atol=1e-4)
+    # from the cache: the same bytes; without the option none of these files, and
+    # run.json (hence the cache keys) as before the option existed
+    first = _tables(out)
+    again = run_study(manifest, out, parameters=DescribeParameters(degree=4, sphere_maps=True))
+    assert again.n_computed == 0 and _tables(out) == first
+    plain = tmp_path / "plain"
+    run_study(manifest, plain, parameters=PARAMS)
+    assert not list((plain / "coefficients").glob("*.gii"))
+    assert "sphere_maps" not in json.loads((plain / "run.json").read_text())["parameters"]
+
+
 def test_resume_computes_only_missing_items(tmp_path):
     manifest = read_manifest(make_study(tmp_path / "study", n=2, bad=False))
     full = tmp_path / "full"

@@ -15,6 +15,10 @@ Layout::
                                  (read, surface, prepare, map, describe, write, total) and
                                  the stages' own wall-clock splits; NOT reproducible
       coefficients/<subject>_<structure>.npz   (+ its metadata file, if separate)
+      coefficients/<subject>_<structure>_{surface,sphere}.surf.gii, _distortion.shape.gii
+                                 with --sphere-maps only: the mapped surface, its sphere
+                                 map and per-vertex area/angle distortion (GIFTI, for
+                                 figures; see pipeline.work.sphere_map_files)
       run.json                   parameters, versions, input SHA-256, counts
       .cache/                    per-item results for resuming (see pipeline.cache)
 

@@ -61,6 +61,11 @@ class DescribeParameters:
         Smoothing iterations of the label-volume surface (None: that module's default).
     target_vertices : int or None
         Vertex count the label-volume surface is decimated to (None: no decimation).
+    sphere_maps : bool
+        Also write each item's sphere map and its per-vertex distortion as GIFTI files
+        beside its coefficients (see :func:`shapedesc.pipeline.work.sphere_map_files`).
+        Recorded in run.json and the cache keys only when on, so results made without it
+        keep their keys.
     """
 
     degree: int = DEFAULT_DEGREE
@@ -68,6 +73,7 @@ class DescribeParameters:
     smoothing: float = 0.0
     volume_smoothing_iterations: int | None = None
     target_vertices: int | None = None
+    sphere_maps: bool = False
 
     def __post_init__(self):
         if isinstance(self.degree, bool) or not isinstance(self.degree, int) or self.degree < 1:
@@ -90,8 +96,14 @@ class DescribeParameters:
             if v is not None and (isinstance(v, bool) or not isinstance(v, int) or v < 0):
                 raise ValueError(f"{name} must be a non-negative integer or None, got {v!r}")
 
+        if not isinstance(self.sphere_maps, bool):
+            raise ValueError(f"sphere_maps must be True or False, got {self.sphere_maps!r}")
+
     def as_dict(self) -> dict:
-        return asdict(self)
+        d = asdict(self)
+        if not self.sphere_maps:
+            del d["sphere_maps"]
+        return d
 
 
 @dataclass(frozen=True)

@@ -256,6 +256,53 @@ def _coefficient_files(desc) -> dict[str, bytes]:
     return files
 
 
+#: Per-item files of ``describe --sphere-maps`` (suffix after ``<subject>_<structure>``).
+SPHERE_MAP_SUFFIXES = ("_surface.surf.gii", "_sphere.surf.gii", "_distortion.shape.gii")
+
+
+def sphere_map_files(surface, sphere_map) -> dict[str, bytes]:
+    """An item's sphere map as GIFTI files, for figures (suffix -> bytes).
+
+    * ``_surface.surf.gii``: the surface that was mapped (after ``prepare_surface``, which
+      may have merged or reordered vertices of the input), in mm;
+    * ``_sphere.surf.gii``: the same vertices and triangles on the unit sphere;
+    * ``_distortion.shape.gii``: per-vertex maps ``area_log_ratio`` (log of the sphere
+      area share over the surface area share, barycentric vertex areas) and
+      ``angle_distortion_deg`` (mean absolute corner-angle change at the vertex).
+
+    GIFTI stores float32 (the standard's only floating type): about 6e-8 on the unit
+    sphere, enough to draw the map, not to recompute it (the map itself is float64).
+
+    Examples
+    --------
+    A figure of where the map compresses (< 0) or expands (> 0) the surface::
+
+        from shapedesc.io.surfaces import read_surface, read_vertex_data
+        from shapedesc.figures.surfaces import render_surface_figure
+        s = read_surface("OUT/coefficients/sub-01_arc_surface.surf.gii")
+        d = read_vertex_data("OUT/coefficients/sub-01_arc_distortion.shape.gii")
+        render_surface_figure(s.vertices, s.faces, "arc_area.png",
+                              scalars=d["area_log_ratio"], scalar_label="log area ratio",
+                              units="sphere/surface")
+    """
+    from shapedesc.io.surfaces import write_surface, write_vertex_data
+    from shapedesc.surface import Surface
+
+    sphere = Surface(vertices=sphere_map.sphere_vertices, faces=surface.faces,
+                     source=f"{surface.source} (sphere map)", history=surface.history)
+    files: dict[str, bytes] = {}
+    with tempfile.TemporaryDirectory(prefix="shapedesc-") as tmp:
+        paths = [Path(tmp) / f"item{sfx}" for sfx in SPHERE_MAP_SUFFIXES]
+        write_surface(surface, paths[0])
+        write_surface(sphere, paths[1])
+        write_vertex_data(paths[2], {
+            "area_log_ratio": sphere_map.vertex_area_distortion,
+            "angle_distortion_deg": sphere_map.vertex_angle_distortion_deg})
+        for sfx, path in zip(SPHERE_MAP_SUFFIXES, paths):
+            files[sfx] = path.read_bytes()
+    return files
+
+
 def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
     """The computation proper; raises ``_StageError`` naming the stage that failed (the
     one ``clock`` was timing)."""
@@ -314,6 +361,8 @@ def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
                 "qc": {**qc, **extra_qc}}
         clock.start("write")
         files = _coefficient_files(desc)
+        if params.get("sphere_maps"):
+            files.update(sphere_map_files(surface, sphere_map))
         return rows, files, timing
     except Exception as exc:  # noqa: BLE001 - one bad subject must not stop the study
         raise _StageError(clock.stage, exc) from exc
