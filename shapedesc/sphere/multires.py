@@ -78,7 +78,7 @@ def _coarse_step(problem: AreaProblem, x: np.ndarray, e0: float, surface_vertice
     det = problem.dets(x)
     share = det / det.sum()
     # 1. surface-area share per coarse face; grid positions of the fine vertices
-    cen = _normalise(x[f].mean(axis=1))
+    cen = _normalise(np.take(x, f, axis=0).mean(axis=1))  # (np.take: x[f], faster)
     ci, cw = locate_on_sphere(cv, cf, np.concatenate([cen, x]))
     fi, ti, tw = ci[:len(f)], ci[len(f):], cw[len(f):]
     count = np.bincount(fi, minlength=len(cf))
@@ -100,7 +100,7 @@ def _coarse_step(problem: AreaProblem, x: np.ndarray, e0: float, surface_vertice
     disp = res.sphere_vertices - cv
     t = 1.0
     for _ in range(8):
-        x_new = _normalise(np.einsum("nk,nki->ni", tw, (cv + t * disp)[cf[ti]]))
+        x_new = _normalise(np.einsum("nk,nki->ni", tw, np.take(cv + t * disp, cf[ti], axis=0)))
         e_new = problem.energy(x_new)
         if e_new < e0:
             return x_new, e_new, res.iterations
