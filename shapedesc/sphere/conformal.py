@@ -72,10 +72,18 @@ class ConformalResult:
     puncture_face : int
         Index of the face mapped around the north pole in step 1.
     flips_planar, flips_projected, flips_corrected : int
-        Folded triangles after step 1 (in the plane, the puncture excluded), after
-        step 2 (on the sphere) and after step 3 (on the sphere, before the fallback).
+        Folded triangles of each step's output: after step 1 (in the plane, the puncture
+        excluded), after step 2 (on the sphere) and after step 3 (on the sphere: the
+        corrected map when it was kept, else the projected map it falls back to).
     pole_correction_used : bool
         Whether the step-3 result was kept (False when it would have flipped a triangle).
+    pole_correction_trial_flips : int
+        Folded triangles of the step-3 trial itself (> 0 exactly when it was discarded
+        for flips). With the graph Laplacian of :mod:`.hierarchy` the correction is not
+        the Beltrami solve it is for a cotangent Laplacian and is often discarded
+        (measured: 326 and 548 trial flips on the 500- and 300-vertex coarse levels of a
+        decimated MNI putamen); reporting those as the stage's flips made the coarse-map
+        check refuse maps whose output had none.
     """
 
     sphere_vertices: np.ndarray
@@ -84,6 +92,7 @@ class ConformalResult:
     flips_projected: int
     flips_corrected: int
     pole_correction_used: bool
+    pole_correction_trial_flips: int = 0
 
 
 def inverse_stereographic(z: np.ndarray) -> np.ndarray:
@@ -258,8 +267,10 @@ def conformal_sphere_map(vertices: np.ndarray, faces: np.ndarray, *, source: str
     q = Q[:, 0] + 1j * Q[:, 1]
     r2 = (q * np.conj(q)).real
     s_corr = np.stack([2 * q.real / (1 + r2), 2 * q.imag / (1 + r2), (1 - r2) / (1 + r2)], axis=1)
-    flips_corrected = int(np.sum(sphere_face_det(s_corr, faces) <= 0))
-    used = flips_corrected == 0 and np.all(np.isfinite(s_corr))
+    trial_flips = int(np.sum(sphere_face_det(s_corr, faces) <= 0))
+    used = trial_flips == 0 and bool(np.all(np.isfinite(s_corr)))
     out = s_corr if used else s
+    flips_corrected = 0 if used else flips_projected  # the stage's output is ``out``
     out = out / np.linalg.norm(out, axis=1, keepdims=True)
-    return ConformalResult(out, big, flips_planar, flips_projected, flips_corrected, bool(used))
+    return ConformalResult(out, big, flips_planar, flips_projected, flips_corrected, used,
+                           trial_flips)
