@@ -193,6 +193,19 @@ SPHERE_SHEAR_FORM: str = "mips-bounded"
 #: study's group effect is kept at knee 3 and 4 and lost at 2.5 (a cliff), so 4 leaves
 #: a margin; synthetic test shapes stay below the knee.
 SPHERE_SHEAR_KNEE: float = 4.0
+#: Tail term of the area energy, ψ(u) = c·(|u| − u0)₊² of the face log area ratio u
+#: (shapedesc/sphere/area.py, "Tail of the area ratio"): u0, where the area penalty
+#: steepens (dimensionless log ratio). The issue's percentile target is |u| <= 0.3; with
+#: u0 = 0.25 the MNI left putamen's 1st/99th percentiles go from −0.31/0.27 to
+#: −0.26/0.26 and the WM hemisphere's from −0.29/0.35 to −0.24/0.24, while the demo
+#: study's bent shapes (1st percentile −0.21 on average, −0.25 at worst) stay nearly
+#: untouched; u0 = 0.2 also moved the 6:1 ellipsoid's tips (angle +0.16°).
+SPHERE_AREA_TAIL_LOG: float = 0.25
+#: c of the tail term (dimensionless): beyond u0 the area penalty's curvature rises from
+#: ~2 to 2 + 2c. Measured on the MNI putamen (left/right 99th pct 0.270/0.276 at c = 3,
+#: 0.259/0.264 at 10, 0.255/0.254 at 30, 0.251/0.250 at 100): above ~10 the percentiles
+#: sit at u0 whatever c, and larger c costs iterations (putamen 129 at 10, 309 at 100).
+SPHERE_AREA_TAIL_STIFFNESS: float = 10.0
 #: Area correction stops when the energy decreased by less than this fraction over the
 #: last ``SPHERE_AREA_STALL_WINDOW`` iterations (dimensionless). Measured on the test
 #: shapes: the face area-distortion SD changes by < 1e-4 between 1e-3 and 1e-6.

@@ -43,7 +43,7 @@ from ..defaults import SPHERE_LU_ORDERING, SPHERE_MIN_REL_DET, SPHERE_SHEAR_WEIG
 from ..errors import SphereMapError
 from ..mesh.measures import vertex_areas
 from . import qc as _qc
-from .area import AreaProblem
+from .area import AreaProblem, continue_on_tail
 from .conformal import conformal_sphere_map, sphere_face_det
 from .laplacian import clamped_cotangent_laplacian
 from .mobius import mobius_centre
@@ -220,7 +220,7 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     t2 = time.perf_counter()
     t1 = t2 - t_centre
     problem = AreaProblem(vn, f, shear_weight=shear_weight, laplacian=L, what=source)
-    res = correct_area_multires(problem, x, surface_vertices=vn)
+    res = continue_on_tail(problem, correct_area_multires(problem, x, surface_vertices=vn))
     xs = res.sphere_vertices
     t3 = time.perf_counter()
 
