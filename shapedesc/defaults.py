@@ -196,10 +196,11 @@ SPHERE_SHEAR_KNEE: float = 4.0
 #: Tail term of the area energy, ψ(u) = c·(|u| − u0)₊² of the face log area ratio u
 #: (shapedesc/sphere/area.py, "Tail of the area ratio"): u0, where the area penalty
 #: steepens (dimensionless log ratio). The issue's percentile target is |u| <= 0.3; with
-#: u0 = 0.25 the MNI left putamen's 1st/99th percentiles go from −0.31/0.27 to
-#: −0.26/0.26 and the WM hemisphere's from −0.29/0.35 to −0.24/0.24, while the demo
-#: study's bent shapes (1st percentile −0.21 on average, −0.25 at worst) stay nearly
-#: untouched; u0 = 0.2 also moved the 6:1 ellipsoid's tips (angle +0.16°).
+#: u0 = 0.25 the MNI 1st/99th percentiles go from −0.26/0.29 to −0.25/0.26 (left
+#: putamen), −0.26/0.28 to −0.25/0.26 (left WM hemisphere) and −0.34/0.41 to −0.25/0.26
+#: (right WM hemisphere, which missed the targets), while the demo study's bent shapes
+#: (1st percentile −0.21 on average, −0.25 at worst) stay nearly untouched; u0 = 0.2 also
+#: moved the 6:1 ellipsoid's tips (angle +0.16°) and most demo shapes.
 SPHERE_AREA_TAIL_LOG: float = 0.25
 #: c of the tail term (dimensionless): beyond u0 the area penalty's curvature rises from
 #: ~2 to 2 + 2c. Measured on the MNI putamen (left/right 99th pct 0.270/0.276 at c = 3,

@@ -93,62 +93,72 @@ opening ``ε`` and length ``L`` has ``d_f = ε·sin L`` but ``Ω_f = 2ε·tan(L/
 putamen the faces with log ratio > 0.3 (QC's exact measure) had sphere edges of median
 0.48 rad and up to 1.4 rad, and ``log(Ω_f/(d_f/2))`` up to 0.55 (above 0.05 on half of
 them); measured with ``d_f`` the same map's 99th percentile was 0.30, with ``Ω_f`` 0.35.
-The change alone: columns "before" and "Ω" of the table in the next section (MNI
-surfaces as ``tests/test_sphere_anatomy.py`` builds them, synthetic shapes at level 4).
+The change alone (on the coarse-to-fine start of that time, shear on its coarse levels;
+SD, 1st/99th pct): left putamen 0.105, −0.28/0.35 → 0.101, −0.31/0.27; right putamen
+0.100, −0.27/0.34 → 0.094, −0.26/0.29; WM left 0.119, −0.30/0.37 → 0.111, −0.29/0.35;
+caudates and thalami within 0.004 in SD; synthetic shapes within 0.001 and 0.02°.
 Cost: three dot products and an ``arctan2`` per face; the 10,242-vertex bent tube's map
 took the same CPU time (0.57–0.59 s either way, load ~2). The shear term keeps
 ``d_f``: ``K_f`` is the distortion of the affine map onto the chordal triangle.
 
 Tail of the area ratio
 ----------------------
-With the spherical area the MNI left putamen still had its 1st percentile at −0.31 and
-the WM hemisphere its 99th at 0.35: the faces of the thin, sheared parts settle where the
-shear term's pull on them balances the area term's restoring force, and
-``ρ + 1/ρ − 2 ≈ (log ρ)²`` is too soft at |log ρ| ≈ 0.3 to stop them (the tail shrinks
-with ``w``, see above, but ``w`` is the balance of every face). ψ steepens the area
-penalty only beyond ``u0``: its curvature there rises from ~2 to ``2 + 2c``, as if the
-shear weight of those faces were ~11 times smaller, and the bulk (|log ρ| <= u0) is
-unchanged. It is used only in the last fine solve: :func:`continue_on_tail` continues
-the converged map on ``E`` with ψ when any face is beyond ``u0``, and returns the map
-unchanged otherwise (ψ and its gradient vanish near such a map, so it is stationary for
-``E`` as well). The coarse grids (:mod:`.multires`) and the coarse-to-fine levels
-(:mod:`.hierarchy`) solve ``E`` without ψ: their binned area shares are noisy, and ψ
-there acted on that noise — measured with ψ in every problem, the 10,242-vertex bent
-tube (whose final map has no face beyond 0.17) took one more coarse cycle and 81 → 124
-iterations, 10–25 % more CPU; as a continuation it costs nothing on such shapes.
-Measured (w = 0.12; SD, 1st/99th percentile, mean angle °; "before" is the former
-cone-volume area term without ψ, "Ω" the spherical area without ψ, "Ω + ψ" the default):
+With the spherical area (and the coarse-to-fine start's area-only coarse levels,
+:mod:`.hierarchy`) the MNI left putamen's 99th percentile was still 0.29 and the right
+WM hemisphere missed both percentile targets (−0.34/0.41): the faces of thin, sheared
+parts settle where the shear term's pull balances the area term's restoring force, and
+``ρ + 1/ρ − 2 ≈ (log ρ)²`` is soft at |log ρ| ≈ 0.3 (the tail shrinks with ``w``, see
+above, but ``w`` is the balance of every face). ψ steepens the area penalty only beyond
+``u0``: its curvature there rises from ~2 to ``2 + 2c``, as if the shear weight of
+those faces were ~11 times smaller; the bulk (|log ρ| <= u0) is unchanged. It is used
+only in the last fine solve: :func:`continue_on_tail` continues the converged map on
+``E`` with ψ when any face is beyond ``u0`` and returns the map unchanged otherwise (ψ
+and its gradient vanish near such a map, so it is stationary for ``E`` as well). The
+coarse grids (:mod:`.multires`) and the coarse-to-fine levels solve ``E`` without ψ:
+their binned area shares are noisy and ψ there acted on that noise — measured with ψ
+in every problem, the 10,242-vertex bent tube (whose map has no face beyond 0.17) took
+one more coarse cycle and 81 → 124 iterations, 10–25 % more CPU; as a continuation it
+costs nothing on such shapes (same map, CPU 0.46–0.52 s either way, load 3).
+Measured (w = 0.12; SD, 1st/99th percentile, mean angle °; "before" the cone-volume
+area term with shear on the coarse levels, "Ω" the spherical area with area-only coarse
+levels and no ψ, "Ω + ψ" the default; MNI surfaces as ``tests/test_sphere_anatomy.py``
+builds them, hemispheres with 40,000 vertices; synthetic shapes at level 4):
 
 ================  ======================  ======================  ======================
 surface           before                  Ω                       Ω + ψ (default)
 ================  ======================  ======================  ======================
-putamen left      0.105 −0.28/0.35 22.5   0.101 −0.31/0.27 23.6   0.090 −0.26/0.26 23.8
-putamen right     0.100 −0.27/0.34 22.3   0.094 −0.26/0.29 23.0   0.090 −0.26/0.26 23.1
-caudate left      0.052 −0.21/0.10 15.6   0.056 −0.22/0.10 15.8   0.052 −0.22/0.10 15.8
-caudate right     0.051 −0.19/0.09 15.5   0.052 −0.19/0.09 15.6   0.050 −0.20/0.09 15.6
+putamen left      0.105 −0.28/0.35 22.5   0.092 −0.26/0.29 21.9   0.086 −0.25/0.26 22.0
+putamen right     0.100 −0.27/0.34 22.3   0.089 −0.26/0.25 22.2   0.083 −0.25/0.25 22.4
+caudate left      0.052 −0.21/0.10 15.6   0.056 −0.22/0.09 15.7   0.051 −0.20/0.10 15.8
+caudate right     0.051 −0.19/0.09 15.5   0.052 −0.20/0.10 15.6   0.050 −0.20/0.10 15.6
 thalamus left     0.068 −0.24/0.16 15.7   0.068 −0.24/0.16 15.7   0.065 −0.24/0.17 15.7
 thalamus right    0.069 −0.25/0.16 15.6   0.069 −0.25/0.16 15.6   0.065 −0.24/0.16 15.6
-WM left (40k)     0.119 −0.30/0.37 20.5   0.111 −0.29/0.35 20.8   0.074 −0.24/0.24 20.1
+WM left           0.119 −0.30/0.37 20.5   0.093 −0.26/0.28 21.9   0.082 −0.25/0.26 21.9
+WM right          0.082 −0.25/0.24 18.6   0.127 −0.34/0.41 25.7   0.082 −0.25/0.26 23.5
 6:1 ellipsoid     0.0985 −0.27/0.08 33.21 0.0977 −0.26/0.08 33.23 0.0964 −0.25/0.08 33.26
 3:1 bent tube     0.0473 −0.15/0.06 19.92 0.0468 −0.15/0.06 19.93 (no face beyond u0)
 bumpy             0.0271 −0.06/0.06 9.27  0.0272 −0.06/0.06 9.26  (no face beyond u0)
 ================  ======================  ======================  ======================
 
-(The caudate and thalamus change with ψ although their percentiles are inside u0: a
-few faces are beyond it, and the continued solve also runs past the stall test of the
-first; the hemisphere's continuation took 923 iterations, +45 s CPU, ~140 s in all.)
-The demo study at full size: bent structure max |t| 19.1 (before) / 19.6 (Ω) / 19.65
-(Ω + ψ), 8 significant degrees each, the null structure 0.87–0.88 and none; its bent
-shapes' worst 1st percentile is −0.25, at ``u0``, so ψ barely touches them. The choice of
-the constants, measured with ψ as a continuation (putamen left/right, 1st/99th pct):
-``u0`` = 0.2 gives −0.23/0.23 and −0.22/0.22 but moves the 6:1 ellipsoid's tips (angle
-33.23° → 33.39°) and most of the demo's bent shapes; ``u0`` = 0.25 with ``c`` = 3 / 10
-/ 30 / 100: 99th pct 0.270 / 0.259 / 0.255 / 0.251 (left) and 0.276 / 0.264 / 0.254 /
-0.250 (right), at 70 / 129 / 176 / 309 continued iterations (left): from ``c`` ≈ 10 the
-percentiles sit at ``u0`` whatever ``c``, so ``u0`` is the tolerance on the log ratio
-and ``c`` only how firmly it holds. A cubic hinge ``c·(|u| − u0)₊³`` (C²) was weaker
-at the same ``c`` (left putamen −0.29/0.28 at ``c`` = 30, ``u0`` = 0.25). ``w`` stays the
-single balance parameter.
+The right hemisphere met the targets before; with Ω on the earlier coarse-to-fine start
+its fine solve did not converge in SPHERE_AREA_MAX_ITER (ConvergenceError, E 0.078),
+and on the current start it stops at the poor map of the "Ω" column; ψ's continued
+solve (~1,200 iterations) brings it back. CPU (one thread, load ~3): WM left 112 → 129
+s, right 85 → 140 s (before: 133 s); putamen ~7–8 s either way. The caudate and thalamus change
+with ψ although their percentiles are inside ``u0``: a few faces are beyond it, and the
+continued solve also runs on past the first solve's stall test. The demo study at full
+size: bent structure max |t| 19.1 (before) / 19.6 (Ω) / 19.65 (Ω + ψ), 8 significant
+degrees each, the null structure 0.87–0.88 and none; its bent shapes' worst 1st
+percentile is −0.25, at ``u0``, so ψ barely touches them. The constants, measured with ψ
+as a continuation on the spherical-area maps of the earlier coarse-to-fine start (left /
+right putamen, whose percentiles were then −0.31/0.27 and −0.26/0.29): ``u0`` = 0.2
+gives −0.23/0.23 and −0.22/0.22 but moves the 6:1 ellipsoid's tips (33.23° → 33.39°) and
+most of the demo's bent shapes; ``u0`` = 0.25 with ``c`` = 3 / 10 / 30 / 100: 99th pct
+0.270 / 0.259 / 0.255 / 0.251 (left) and 0.276 / 0.264 / 0.254 / 0.250 (right), at 70 /
+129 / 176 / 309 continued iterations (left): from ``c`` ≈ 10 the percentiles sit at
+``u0`` whatever ``c``, so ``u0`` is the tolerance on the log ratio and ``c`` only how
+firmly it holds. A cubic hinge ``c·(|u| − u0)₊³`` (C²) was weaker at the same ``c``
+(left putamen −0.29/0.28 at ``c`` = 30). ``w`` stays the single balance parameter.
 
 Area–angle frontier
 -------------------
@@ -314,7 +324,7 @@ class AreaProblem:
     def log_ratio(self, x: np.ndarray) -> np.ndarray:
         """``log ρ_f`` (F,) at unit vectors ``x`` (every ``d_f > 0``): the QC's face measure."""
         f = self.faces
-        pa, pb, pc = x[f[:, 0]], x[f[:, 1]], x[f[:, 2]]
+        pa, pb, pc = _take(x, f[:, 0]), _take(x, f[:, 1]), _take(x, f[:, 2])
         om = 2.0 * np.arctan2(_dot(pa, _cross(pb, pc)), 1.0 + _dot(pa, pb) + _dot(pb, pc)
                               + _dot(pc, pa))
         return np.log(om / (om.sum() * self.a))
