@@ -186,7 +186,15 @@ triangles. The maps beat that estimate by 2–11° because the mean |Δangle| sa
 is flat: at SD <= 0.10 the 6:1 ellipsoid cannot get below ~33° with this energy, and
 even SD 0.44 buys only 27°. Going further would mean concentrating the shear into a
 seam, which breaks the consistency of the maps across similar shapes that the
-descriptors need; we do not.
+descriptors need; we do not. The energy itself has such maps: a second, lower minimum
+in which an elongated shape *winds* around the sphere like a strip (6:1 ellipsoid
+14.0° at SD 0.191; demo arc 12.6° at SD 0.149, energy 0.043 against the polar map's
+0.085). It is reached from starts other than the centred conformal map, and its
+winding has no canonical direction (forced on 10 demo arcs, 9 maps landed 27–35° from
+their polar maps, spectra 4–31 between-subject SDs apart), so the chain is built to
+reach the polar minimum from every start (see :mod:`.hierarchy`, "Why no shear on the
+coarse levels"). The issue's 20° is therefore met up to ~3:1 (tube 19.9°, 3:1
+ellipsoid 20.1°) and not on the 6:1 ellipsoid or the demo arc (28.7°).
 
 Solver
 ------
