@@ -307,16 +307,7 @@ def main(argv=None):
     if args.tradeoff:
         return 0
     print()
-    cases = []
-    names20 = ["bent tube 3:1"] if args.quick else list(_shapes(45))
-    for n in names20:
-        cases.append((n, *_shapes(45)[n]()))
-    if not (args.quick or args.no_large):
-        cases.append(("bent tube 3:1", *_shapes(127)["bent tube 3:1"]()))
-    if not (args.quick or args.no_anatomy):
-        for n, (v, f) in anatomy_surfaces([("caudate_left", None), ("putamen_left", None),
-                                          ("thalamus_left", None), ("wm_left", 40000)]).items():
-            cases.append((n, v, f))
+    cases = _map_cases(args)
     print(f"{'shape':18s} {'V':>7s} {'flips':>5s} {'SD':>7s} {'p1':>7s} {'p99':>7s} "
           f"{'angle°':>7s} {'iter':>5s} {'cpu s':>7s} {'wall s':>7s}  start   (load {os.getloadavg()[0]:.1f})")
     for name, v, f in cases:
@@ -369,16 +360,22 @@ def main(argv=None):
     return 0
 
 
-def compare_with_baseline(args):
-    """``--baseline``: the map cases only, each by both codes, side by side."""
+def _map_cases(args):
+    """(name, vertices, faces) of the map table: the 20k synthetic shapes, the 160k tube
+    (unless --no-large) and the MNI structures (unless --no-anatomy); --quick: one."""
     cases = [(n, *_shapes(45)[n]()) for n in (["bent tube 3:1"] if args.quick else _shapes(45))]
-    cases.insert(0, ("blob 10k (study)", *_study_item()))
     if not (args.quick or args.no_large):
         cases.append(("bent tube 3:1", *_shapes(127)["bent tube 3:1"]()))
     if not (args.quick or args.no_anatomy):
         for n, (v, f) in anatomy_surfaces([("caudate_left", None), ("putamen_left", None),
                                           ("thalamus_left", None), ("wm_left", 40000)]).items():
             cases.append((n, v, f))
+    return cases
+
+
+def compare_with_baseline(args):
+    """``--baseline``: the map cases only, each by both codes, side by side."""
+    cases = [("blob 10k (study)", *_study_item())] + _map_cases(args)
     if args.only:
         cases = [c for c in cases if any(k in c[0] for k in args.only)]
     results = {"baseline_dir": args.baseline, "repeat": args.repeat, "pairs": []}
