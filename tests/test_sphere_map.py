@@ -198,7 +198,7 @@ def test_energy_gradient_matches_finite_differences(monkeypatch):
         assert fd == pytest.approx(np.vdot(g, d), rel=1e-6)
     # every shear form beyond the knee (bounded, logarithmic): a 12:1 ellipsoid
     # in its natural parameterisation (the icosphere) has anisotropy up to 12 (K ≈ 6)
-    from shapedesc.defaults import SPHERE_SHEAR_KNEE
+    from shapedesc.defaults import SPHERE_SHEAR_FORM, SPHERE_SHEAR_KNEE
     from shapedesc.shapes import icosphere as _ico
     ve, fe = ellipsoid(12, 1, 1, 2)
     xe, _ = _ico(2)
@@ -216,6 +216,10 @@ def test_energy_gradient_matches_finite_differences(monkeypatch):
         e, g = pe.energy_grad(xe)
         fd = (pe.energy(_retract(xe, d, h)) - pe.energy(_retract(xe, d, -h))) / (2 * h)
         assert fd == pytest.approx(np.vdot(g, d), rel=1e-6), form
+    monkeypatch.setattr(area_mod, "_FORM", ["mipps", SPHERE_SHEAR_KNEE])  # a typo is refused
+    with pytest.raises(ValueError, match="unknown shear penalty form 'mipps'"):
+        pe.energy_grad(xe)
+    monkeypatch.setattr(area_mod, "_FORM", [SPHERE_SHEAR_FORM, SPHERE_SHEAR_KNEE])
     # the tail term (beyond |log ρ| = u0): the conformal start of the bumpy shape has
     # log ratios far beyond it, so ψ and its gradient are exercised on many faces
     pt = AreaProblem(v, f, shear_weight=0.12, what="bumpy", tail=True)

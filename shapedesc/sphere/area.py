@@ -459,6 +459,9 @@ def _shear(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         r = k0 / np.where(big, K, k0)
         h = np.where(big, (k0 - 1.0) + k0 * (1.0 - r), t)
         return h, np.where(big, r * r, 1.0)
+    if form != "log":
+        raise ValueError(f"unknown shear penalty form {form!r} (defaults.SPHERE_SHEAR_FORM); "
+                         "use 'mips-bounded', 'mips-log', 'mips' or 'log'")
     ac = np.arccosh(1.0 + t)
     small = t < 1e-6
     safe = np.where(small, 1.0, t * (t + 2.0))
