@@ -333,9 +333,12 @@ class AreaProblem:
         """``log ρ_f`` (F,) at unit vectors ``x`` (every ``d_f > 0``): the QC's face measure."""
         f = self.faces
         pa, pb, pc = _take(x, f[:, 0]), _take(x, f[:, 1]), _take(x, f[:, 2])
-        om = 2.0 * np.arctan2(_dot(pa, _cross(pb, pc)), 1.0 + _dot(pa, pb) + _dot(pb, pc)
-                              + _dot(pc, pa))
-        return np.log(om / (om.sum() * self.a))
+        om = _solid_angles(pa, pb, pc, _dot(pa, _cross(pb, pc)))[0]
+        return self._log_ratio(om, om.sum())
+
+    def _log_ratio(self, om: np.ndarray, total: float) -> np.ndarray:
+        """``log ρ_f`` from the faces' solid angles ``om`` (F,) and their sum."""
+        return np.log(om / (total * self.a))
 
     def energy(self, x: np.ndarray, det: np.ndarray | None = None) -> float:
         """Energy at unit vectors ``x`` (V, 3); ``inf`` when a face has ``d_f <= 0``."""
@@ -345,10 +348,10 @@ class AreaProblem:
             det = _dot(pa, _cross(pb, pc))
         if det.min() <= 0.0:
             return np.inf
-        om = 2.0 * np.arctan2(det, 1.0 + _dot(pa, pb) + _dot(pb, pc) + _dot(pc, pa))
+        om = _solid_angles(pa, pb, pc, det)[0]
         e = om.sum() * np.sum(self.a2 / om) - 1.0
         if self.tail:
-            e += np.sum(self.a * _tail(np.log(om / (om.sum() * self.a)))[0])
+            e += np.sum(self.a * _tail(self._log_ratio(om, om.sum()))[0])
         if self.w:
             q = (self.cot[:, 0] * _sq(pc - pb) + self.cot[:, 1] * _sq(pa - pc)
                  + self.cot[:, 2] * _sq(pb - pa))
@@ -371,15 +374,14 @@ class AreaProblem:
             raise ConvergenceError(f"{self.what}: area correction reached a flipped face")
         cxa, axb = _cross(pc, pa), _cross(pa, pb)
         # solid angle Ω = 2 atan2(det, den) (Van Oosterom & Strackee 1983) and its partials
-        den = 1.0 + _dot(pa, pb) + _dot(pb, pc) + _dot(pc, pa)
-        om = 2.0 * np.arctan2(det, den)
+        om, den = _solid_angles(pa, pb, pc, det)
         r2 = 2.0 / (det * det + den * den)
         D = om.sum()
         S = np.sum(self.a2 / om)
         e = D * S - 1.0
         beta = S - D * self.a2 / om**2  # dE/dΩ per face
         if self.tail:
-            psi, dpsi = _tail(np.log(om / (D * self.a)))
+            psi, dpsi = _tail(self._log_ratio(om, D))
             e += np.sum(self.a * psi)
             ad = self.a * dpsi  # d(Σ a ψ)/dΩ_f = a_f ψ'(u_f)/Ω_f − Σ_g a_g ψ'(u_g)/D
             beta = beta + ad / om - np.sum(ad) / D
@@ -421,6 +423,14 @@ class AreaProblem:
         h = self._precond(g)
         h -= np.einsum("ij,ij->i", h, x)[:, None] * x
         return h
+
+
+def _solid_angles(pa, pb, pc, det):
+    """Solid angles Ω (F,) of the geodesic triangles (pa, pb, pc) (each (F, 3), unit
+    vectors) with ``det = det(pa, pb, pc)``, as ``2·atan2(det, den)`` (Van Oosterom &
+    Strackee 1983), and ``den = 1 + pa·pb + pb·pc + pc·pa`` (for the gradient)."""
+    den = 1.0 + _dot(pa, pb) + _dot(pb, pc) + _dot(pc, pa)
+    return 2.0 * np.arctan2(det, den), den
 
 
 def _tail(u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
