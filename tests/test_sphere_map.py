@@ -307,6 +307,51 @@ def test_angle_distortion_of_the_6to1_ellipsoid_within_the_isoperimetric_estimat
     assert m.qc.angle_distortion_mean_deg <= est
 
 
+def _archimedes_authalic(v, a):
+    """The axially symmetric equal-area map of the prolate spheroid ``v`` (long semi-axis
+    ``a`` along x, unit equator): by Archimedes' hat-box theorem the polar cap of the unit
+    sphere up to angle θ has area share (1 − cos θ)/2, so the point whose surface share
+    below it is s goes to cos θ = 1 − 2s, longitude kept. Returns (share below (V,),
+    the map (V, 3))."""
+    from scipy.integrate import quad
+
+    def ring(x):  # r·sqrt(1 + r'²) of r(x) = sqrt(1 − x²/a²): dA = 2π·ring(x)·dx
+        return np.sqrt(max(1.0 - x * x / (a * a), 0.0) + (x / (a * a)) ** 2)
+
+    total = quad(ring, -a, a, limit=200)[0]
+    share = np.array([quad(ring, -a, x, limit=200)[0] for x in np.clip(v[:, 0], -a, a)]) / total
+    z = 2.0 * share - 1.0
+    phi = np.arctan2(v[:, 2], v[:, 1])
+    r = np.sqrt(np.clip(1.0 - z * z, 0.0, None))
+    return share, np.c_[z, r * np.cos(phi), r * np.sin(phi)]
+
+
+def test_6to1_ellipsoid_map_follows_archimedes_equal_area_relation(maps):
+    # outside truth: Archimedes' hat-box theorem (On the Sphere and Cylinder I, prop. 42-43:
+    # a spherical cap's area grows linearly with its height). Our map of the 6:1 spheroid is
+    # "polar" (tips to antipodes), so the cap around the first tip's image up to a vertex
+    # must hold that vertex's surface-area share below it. Measured: max error 0.021 of the
+    # total area (mean 0.010) at area SD 0.096 — tolerance 0.03 leaves room for solver
+    # round-off; the centred conformal map (before area correction) misses by 0.17
+    # (mean 0.069). The same theorem gives the unique axisymmetric authalic map, whose mean angle
+    # distortion (measured 35 deg here) shows why the issue's 20 deg is out of reach for
+    # any polar map of this shape at the area target (see sphere/area.py "frontier").
+    from shapedesc.sphere import qc
+
+    v, f, m = maps["ellipsoid 6:1:1"]
+    share, exact = _archimedes_authalic(v, 6.0)
+    tip = m.sphere_vertices[np.argmin(v[:, 0])]
+    cap = (1.0 - m.sphere_vertices @ tip) / 2.0
+    assert np.abs(cap - share).max() < 0.03
+    assert np.abs(cap - share).mean() < 0.015
+    # the exact symmetric authalic map: area-preserving to discretisation error, and its
+    # shear at least that of our map less 3 deg (ours trades SD 0.1 of area for ~2 deg)
+    assert qc.face_log_area_ratio(v, exact, f).std() < 0.01
+    exact_angle = qc.angle_distortion_deg(v, exact, f).mean()
+    assert exact_angle > 30.0
+    assert m.qc.angle_distortion_mean_deg > exact_angle - 3.0
+
+
 def test_area_term_measures_spherical_triangle_areas():
     # the area term compares each face's *spherical* area share with its surface share:
     # with the shares set to the spherical areas of a coarse icosphere's own geodesic
