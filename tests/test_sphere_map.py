@@ -260,6 +260,16 @@ def test_bounded_shear_form_is_c1_at_the_knee_and_bounded(monkeypatch):
     np.testing.assert_allclose(fd, area_mod._shear(Kb)[1], rtol=1e-6)
 
 
+def _spheroid_area_below(z, a):
+    """Loop radius ρ, area density dA/dz and area below z (trapezoid rule) of the (a, 1, 1)
+    spheroid at the increasing grid ``z`` (n,) from −a to a."""
+    rho = np.sqrt(np.maximum(1 - z**2 / a**2, 0))
+    d_a = 2 * np.pi * rho * np.sqrt(1 + (z / (a * a * np.maximum(rho, 1e-12))) ** 2)
+    d_a[~np.isfinite(d_a)] = 0.0
+    cum = np.concatenate([[0.0], np.cumsum(0.5 * (d_a[1:] + d_a[:-1]) * np.diff(z))])
+    return rho, d_a, cum
+
+
 # The benchmark (benchmarks/sphere_map.py, isoperimetric_angle_estimate) computes the same
 # estimate; this copy is kept on purpose as the test's own reference, written separately
 # (orientations vectorised) and checked against the lead's hand values below, so that a
@@ -274,10 +284,7 @@ def _isoperimetric_angle_estimate_deg(a, n=801, n_phi=60):
     2R√(f(1−f))/ρ, and with area kept the anisotropy is that ratio squared.
     """
     z = np.linspace(-a, a, n)
-    rho = np.sqrt(np.maximum(1 - z**2 / a**2, 0))
-    d_a = 2 * np.pi * rho * np.sqrt(1 + (z / (a * a * np.maximum(rho, 1e-12))) ** 2)
-    d_a[~np.isfinite(d_a)] = 0.0
-    cum = np.concatenate([[0.0], np.cumsum(0.5 * (d_a[1:] + d_a[:-1]) * np.diff(z))])
+    rho, d_a, cum = _spheroid_area_below(z, a)
     frac, radius = cum / cum[-1], np.sqrt(cum[-1] / (4 * np.pi))
     lam = np.maximum(1.0, 2 * radius * np.sqrt(frac * (1 - frac)) / np.maximum(rho, 1e-300))
     phis = (np.arange(n_phi) + 0.5) * (np.pi / 3) / n_phi
@@ -313,13 +320,9 @@ def _archimedes_authalic(v, a):
     sphere up to angle θ has area share (1 − cos θ)/2, so the point whose surface share
     below it is s goes to cos θ = 1 − 2s, longitude kept. Returns (share below (V,),
     the map (V, 3))."""
-    from scipy.integrate import quad
-
-    def ring(x):  # r·sqrt(1 + r'²) of r(x) = sqrt(1 − x²/a²): dA = 2π·ring(x)·dx
-        return np.sqrt(max(1.0 - x * x / (a * a), 0.0) + (x / (a * a)) ** 2)
-
-    total = quad(ring, -a, a, limit=200)[0]
-    share = np.array([quad(ring, -a, x, limit=200)[0] for x in np.clip(v[:, 0], -a, a)]) / total
+    grid = np.linspace(-a, a, 20001)
+    cum = _spheroid_area_below(grid, a)[2]
+    share = np.interp(v[:, 0], grid, cum / cum[-1])
     z = 2.0 * share - 1.0
     phi = np.arctan2(v[:, 2], v[:, 1])
     r = np.sqrt(np.clip(1.0 - z * z, 0.0, None))
