@@ -267,6 +267,14 @@ SPHERE_HIERARCHY_GROWTH: float = 1.6
 #: 40,000-vertex one took 300 s CPU (SD 0.134); with 100: 34 s (SD 0.114) and 205 s
 #: (SD 0.119); with 200 (growth 2) the 40k fine solve stalled early (SD 0.185).
 SPHERE_HIERARCHY_ITER: int = 100
+#: After each round of vertex splits, faces whose ``det`` is below this fraction of the
+#: mean are opened by a local pure-area descent of their own vertices before the level is
+#: relaxed (dimensionless; shapedesc/sphere/hierarchy.py, ``_open_collapsed``). A split
+#: halves its step up to 39 times, so ordinary splits stay far above 1e-6 (2^-20); the
+#: one split of a 40,000-vertex MNI hemisphere that needed 29 halvings fell below it.
+SPHERE_HIERARCHY_OPEN_REL_DET: float = 1e-6
+#: Iteration budget of that local descent (it stops earlier when the energy stalls).
+SPHERE_HIERARCHY_OPEN_ITER: int = 200
 
 # --------------------------------------------------------------------------- descriptors
 #: Side of the uniform grid cells of the point-to-mesh distance, in median face

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import trimesh
 
-from shapedesc.shapes import bent_tube, ellipsoid
+from shapedesc.shapes import bent_tube, ellipsoid, icosphere
 from shapedesc.sphere import map_to_sphere
 from shapedesc.sphere.conformal import sphere_face_det
 from shapedesc.sphere.hierarchy import _collapse_round, _compact, _face_quadrics, coarse_to_fine_map
@@ -94,3 +94,31 @@ def test_both_starts_reach_the_same_map(monkeypatch):
         diff = _rotation_aligned_difference_deg(conformal.sphere_vertices, coarse.sphere_vertices)
         assert diff < 3.0, (name, diff)
         assert abs(coarse.qc.area_log_sd - conformal.qc.area_log_sd) < 0.01, name
+
+
+def test_nearly_collapsed_faces_after_a_split_are_opened_locally():
+    # a vertex pushed to within 1e-9 of the way to its neighbour (as a split into a very
+    # thin wedge leaves it; every face still positive): _open_collapsed moves only the
+    # vertices of the faces below SPHERE_HIERARCHY_OPEN_REL_DET, by a local pure-area
+    # descent, and leaves everything else bit for bit
+    from shapedesc.defaults import SPHERE_HIERARCHY_OPEN_REL_DET
+    from shapedesc.mesh.measures import vertex_areas
+    from shapedesc.sphere.hierarchy import _open_collapsed
+
+    v, f = icosphere(3)
+    mass = vertex_areas(v, f)
+    x = v.copy()
+    assert _open_collapsed(v, x, f, mass, "round.obj") == 0 and np.array_equal(x, v)
+    i, j = int(f[0, 0]), int(f[0, 1])
+    x[i] = x[j] + 1e-9 * (x[i] - x[j])
+    x[i] /= np.linalg.norm(x[i])
+    det0 = sphere_face_det(x, f)
+    bad = det0 < SPHERE_HIERARCHY_OPEN_REL_DET * det0.mean()
+    assert det0.min() > 0 and bad.sum() == 2
+    before = x.copy()
+    assert _open_collapsed(v, x, f, mass, "round.obj") > 0
+    det = sphere_face_det(x, f)
+    # opened to a normal size: the smallest face within 3x of the sphere's own smallest
+    assert det.min() > sphere_face_det(v, f).min() / 3
+    moved = np.flatnonzero(np.any(x != before, axis=1))
+    assert set(moved) <= set(f[bad].ravel())

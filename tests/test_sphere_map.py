@@ -418,3 +418,30 @@ def test_tail_continuation_only_where_a_face_is_beyond_u0(maps, monkeypatch):
     assert m0.qc.area_log_p01 < -u0 - 0.01
     assert m.qc.area_log_p01 > m0.qc.area_log_p01 + 0.005
     assert m.qc.area_log_sd < m0.qc.area_log_sd
+
+
+def test_stall_with_a_collapsed_face_raises_instead_of_returning(monkeypatch):
+    # When no step decreases the energy the solve ends as stationary, unless a face is
+    # collapsed below SPHERE_MIN_REL_DET: then the map is refused (measured once on a
+    # 40,000-vertex MNI hemisphere's start, whose faces ~1e-13 rad wide no step opened; the
+    # solve had returned it as converged at area SD 0.73). A start with a vertex moved to
+    # within 1e-14 of the way to its neighbour (every face still positive: the segment lies
+    # in the vertex's star) has two such faces; the solver itself can open that one, so
+    # the stall is forced by a retraction that never moves.
+    import shapedesc.sphere.area as area
+
+    v, f = icosphere(2)
+    x = v.copy()
+    i, j = int(f[0, 0]), int(f[0, 1])
+    x[i] = x[j] + 1e-14 * (x[i] - x[j])
+    x[i] /= np.linalg.norm(x[i])
+    det = np.einsum("ij,ij->i", x[f[:, 0]], np.cross(x[f[:, 1]], x[f[:, 2]]))
+    assert det.min() > 0 and det.min() < 1e-12 * det.mean()
+    p = AreaProblem(v, f, shear_weight=0.1, what="pinched.obj")
+    monkeypatch.setattr(area, "_retract", lambda x, d, t: x.copy())
+    with pytest.raises(ConvergenceError, match=r"pinched\.obj: area correction stalled with 2 "
+                                               r"faces collapsed"):
+        correct_area(p, x)
+    # the same stall at an uncollapsed map is returned (stationary or stalled, not refused)
+    r = correct_area(p, v)
+    assert np.array_equal(r.sphere_vertices, v)

@@ -234,7 +234,8 @@ import scipy.sparse as sp
 
 from ..defaults import (SPHERE_AREA_ABS_TOL, SPHERE_AREA_MAX_ITER, SPHERE_AREA_REL_TOL, SPHERE_AREA_STALL_WINDOW,
                         SPHERE_AREA_TAIL_LOG, SPHERE_AREA_TAIL_STIFFNESS,
-                        SPHERE_LBFGS_MEMORY, SPHERE_PRECOND_MASS, SPHERE_SHEAR_FORM,
+                        SPHERE_LBFGS_MEMORY, SPHERE_MIN_REL_DET, SPHERE_PRECOND_MASS,
+                        SPHERE_SHEAR_FORM,
                         SPHERE_SHEAR_KNEE)
 from ..errors import ConvergenceError
 from .laplacian import triangle_cotangents
@@ -605,7 +606,18 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
                 break
             t *= 0.5
         if not accepted:
-            break  # no decrease possible at machine precision: stationary point
+            # no decrease possible at machine precision: a stationary point, unless some
+            # face is collapsed below what double precision resolves (then no step can
+            # open it, and returning would pass off a broken map as converged)
+            det = problem.dets(x)
+            n_bad = int(np.sum(det <= SPHERE_MIN_REL_DET * det.mean()))
+            if n_bad:
+                raise ConvergenceError(
+                    f"{problem.what}: area correction stalled with {n_bad} faces collapsed "
+                    f"below {SPHERE_MIN_REL_DET:g} of the mean (energy {e:.4g}); no step in "
+                    "double precision opens them, so the map is not returned. Please "
+                    "report this surface")
+            break
         s = x_new - x
         y = g_new - g
         sy = _vdot(s, y, tmp)
