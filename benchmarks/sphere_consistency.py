@@ -13,7 +13,10 @@ Three measurements, printed as tables and written to benchmarks/results/sphere_c
   their midpoint-subdivided copies (``trimesh.remesh.subdivide``: the same point set,
   4x the faces): mean / 99th-percentile angle between the maps at the original
   vertices after the best rotation, and the largest per-degree difference of the
-  spectrum amplitude sqrt(energy) (mm).
+  spectrum amplitude sqrt(energy) (mm); and re-meshed copies (the subdivided copy
+  decimated back to the original vertex count by ``mesh.decimate``: an independent
+  triangulation of nearly the same surface), compared at the original vertices' closest
+  points on the copy; with the QC's ``sheared_area_share`` of each map.
 * ``stop``: the same structures with the fine solve's stall test at the default
   ``SPHERE_AREA_REL_TOL`` and at 1e-7 (budget 20,000 iterations): largest per-degree
   difference of the spectrum amplitude (mm), iterations and CPU seconds.
@@ -95,9 +98,40 @@ def _template(name):
     return volume.mask_to_surface(st.mask, st.affine, source=name, evidence=st.evidence)[0]
 
 
+def _transfer(points, vertices, faces, sphere_vertices, k=16):
+    """Sphere positions (n, 3) at ``points`` (n, 3) on the surface (vertices, faces): the
+    closest surface point (among the faces of the k nearest centroids), its barycentric
+    coordinates, the map interpolated there and normalised; and the distances (mm)."""
+    from scipy.spatial import cKDTree
+
+    from shapedesc.mesh.distance import closest_point_on_triangles
+
+    _, cand = cKDTree(vertices[faces].mean(axis=1)).query(points, k=k)
+    best = np.full(len(points), np.inf)
+    face = np.zeros(len(points), dtype=np.int64)
+    near = np.zeros_like(points)
+    for j in range(k):
+        fi = cand[:, j]
+        a, b, c = (vertices[faces[fi, m]] for m in range(3))
+        q = closest_point_on_triangles(points, a, b, c)
+        d = np.sum((q - points) ** 2, axis=1)
+        better = d < best
+        best[better], face[better], near[better] = d[better], fi[better], q[better]
+    a, b, c = (vertices[faces[face, m]] for m in range(3))
+    e0, e1, e2 = b - a, c - a, near - a
+    d00, d01, d11 = (e0 * e0).sum(1), (e0 * e1).sum(1), (e1 * e1).sum(1)
+    d20, d21 = (e2 * e0).sum(1), (e2 * e1).sum(1)
+    den = d00 * d11 - d01 * d01
+    l1, l2 = (d11 * d20 - d01 * d21) / den, (d00 * d21 - d01 * d20) / den
+    y = ((1 - l1 - l2)[:, None] * sphere_vertices[faces[face, 0]]
+         + l1[:, None] * sphere_vertices[faces[face, 1]] + l2[:, None] * sphere_vertices[faces[face, 2]])
+    return y / np.linalg.norm(y, axis=1, keepdims=True), np.sqrt(best)
+
+
 def run_retriangulated(names) -> list:
     import trimesh
 
+    from shapedesc.mesh.decimate import decimate
     from shapedesc.sphere import map_to_sphere
     from shapedesc.surface import Surface
 
@@ -106,18 +140,30 @@ def run_retriangulated(names) -> list:
         s = _template(name)
         v2, f2 = trimesh.remesh.subdivide(s.vertices, s.faces)
         s2 = Surface(v2, f2, source=f"{name} (subdivided)")
+        v3, f3 = decimate(v2, f2, s.n_vertices)
+        s3 = Surface(v3, f3, source=f"{name} (re-meshed)")
         out = []
-        for surf in (s, s2):
+        for surf in (s, s2, s3):
             t = time.process_time()
-            m = map_to_sphere(surf.vertices, surf.faces, source=surf.source)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # ShearedMapWarning: the share is reported
+                m = map_to_sphere(surf.vertices, surf.faces, source=surf.source)
             cpu = time.process_time() - t
             out.append((m, np.sqrt(_describe(surf, m).spectrum_mm2), cpu))
         d = _aligned_angles_deg(out[0][0].sphere_vertices,
                                 out[1][0].sphere_vertices[:s.n_vertices])
-        rows.append({"structure": name, "vertices": [s.n_vertices, s2.n_vertices],
+        y, dist = _transfer(s.vertices, v3, f3, out[2][0].sphere_vertices)
+        d3 = _aligned_angles_deg(out[0][0].sphere_vertices, y)
+        rows.append({"structure": name, "vertices": [s.n_vertices, s2.n_vertices, s3.n_vertices],
                      "starts": [o[0].qc.initial_map for o in out],
+                     "sheared_area_share": [o[0].qc.sheared_area_share for o in out],
                      "mean_deg": float(d.mean()), "p99_deg": float(np.percentile(d, 99)),
                      "max_amplitude_difference_mm": float(np.abs(out[0][1] - out[1][1]).max()),
+                     "remeshed_mean_deg": float(d3.mean()),
+                     "remeshed_p99_deg": float(np.percentile(d3, 99)),
+                     "remeshed_max_amplitude_difference_mm":
+                         float(np.abs(out[0][1] - out[2][1]).max()),
+                     "remeshed_max_distance_mm": float(dist.max()),
                      "cpu_s": [o[2] for o in out]})
     return rows
 
@@ -172,12 +218,17 @@ def main(argv=None) -> int:
               + " ".join(f"{x:.2f}" for x in r["log_spectrum_start_effect_over_between_sd"]))
     if "retriangulated" not in args.skip:
         out["retriangulated"] = rows = run_retriangulated(args.structures)
-        print("MNI structure vs its midpoint-subdivided copy")
+        print("MNI structure vs its midpoint-subdivided copy, and vs a re-meshed copy (subdivided, "
+              "then decimated to the same vertex count; compared at closest points)")
         for row in rows:
             print(f"  {row['structure']:14s} V {row['vertices'][0]:6d}/{row['vertices'][1]:6d} "
-                  f"map difference mean {row['mean_deg']:6.2f} deg, p99 {row['p99_deg']:6.2f} deg; "
-                  f"max amplitude difference {row['max_amplitude_difference_mm']:.3f} mm; "
-                  f"CPU {row['cpu_s'][0]:.1f} / {row['cpu_s'][1]:.1f} s")
+                  f"sheared share {row['sheared_area_share'][0]:.4f}; subdivided: mean "
+                  f"{row['mean_deg']:6.2f} deg, p99 {row['p99_deg']:6.2f} deg, amplitudes "
+                  f"{row['max_amplitude_difference_mm']:.3f} mm; re-meshed: mean "
+                  f"{row['remeshed_mean_deg']:6.2f} deg, p99 {row['remeshed_p99_deg']:6.2f} deg, "
+                  f"amplitudes {row['remeshed_max_amplitude_difference_mm']:.3f} mm "
+                  f"(surfaces up to {row['remeshed_max_distance_mm']:.2f} mm apart); CPU "
+                  + " / ".join(f"{c:.1f}" for c in row["cpu_s"]) + " s")
     if "stop" not in args.skip:
         out["stop"] = rows = run_stop(args.structures)
         print("fine solve stopped by the default stall test vs at rel_tol 1e-7")

@@ -193,6 +193,23 @@ SPHERE_SHEAR_FORM: str = "mips-bounded"
 #: study's group effect is kept at knee 3 and 4 and lost at 2.5 (a cliff), so 4 leaves
 #: a margin; synthetic test shapes stay below the knee.
 SPHERE_SHEAR_KNEE: float = 4.0
+#: QC of the sphere map: a face counts as strongly sheared when the affine map from its
+#: surface triangle to its chordal sphere triangle stretches one direction this many
+#: times more than the other (σ1/σ2, dimensionless; shapedesc/sphere/qc.py). Any
+#: area-preserving map must shear a thin neck strongly (its short loops must enclose
+#: sizeable sphere areas: spherical isoperimetric inequality), and there the energy is
+#: nearly flat, so the map is not unique. Measured (MNI ICBM152, default map,
+#: benchmarks/sphere_consistency.py): the share of surface area above 10 is 0.8–1.2 %
+#: for the caudates and thalami, whose maps of a re-meshed copy agree to 1.0–1.5 deg
+#: (mean), 7.7 / 8.8 % for the left / right putamen, whose copies' maps are 7.3 / 9.2 deg
+#: apart, and 4.5 % for the 40,000-vertex left WM hemisphere (7.8 deg); the synthetic
+#: and demo shapes stay below 8 (MIPS K < 4).
+SPHERE_SHEARED_ANISOTROPY: float = 10.0
+#: ... and ``map_to_sphere`` warns (ShearedMapWarning; the pipeline writes it in
+#: qc.tsv) when more than this share of the surface area is that strongly sheared
+#: (dimensionless). 0.03 lies between the compact nuclei (<= 1.2 %) and the
+#: hemisphere and putamens (>= 4.5 %) measured above; only these structures were.
+SPHERE_SHEARED_SHARE_WARN: float = 0.03
 #: Tail term of the area energy, ψ(u) = c·(|u| − u0)₊² of the face log area ratio u
 #: (shapedesc/sphere/area.py, "Tail of the area ratio"): u0, where the area penalty
 #: steepens (dimensionless log ratio). The issue's percentile target is |u| <= 0.3; with

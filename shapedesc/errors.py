@@ -24,6 +24,11 @@ class IllConditionedFitWarning(ShapedescWarning):
     """A least-squares harmonic fit was ill-conditioned and solved by eigen-decomposition."""
 
 
+class ShearedMapWarning(ShapedescWarning):
+    """A large share of a surface is mapped to the sphere with strong shear (thin necks or
+    flanges), where the sphere map, and so the spectra, are not unique."""
+
+
 class IntensityLikeVolumeWarning(ShapedescWarning):
     """An integer volume read as labels looks like a quantised probability or intensity map."""
 

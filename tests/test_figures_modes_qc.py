@@ -87,6 +87,10 @@ def test_qc_caption_prints_the_table_numbers():
     assert warn and "pose warning" in text
     assert qc_caption({**row, "n_flipped": 3})[1]
     assert not qc_caption({**row, "pose_warning": "n/a"})[1]  # describe's "no warning"
+    # a strongly sheared map (above defaults.SPHERE_SHEARED_SHARE_WARN, 3 %) is flagged
+    text, warn = qc_caption({**row, "sheared_area_share": 0.081})
+    assert warn and "sheared 8.1%" in text
+    assert not qc_caption({**row, "sheared_area_share": 0.0})[1]
 
 
 def test_gallery_orders_worst_first_and_lists_failures():

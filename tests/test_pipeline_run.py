@@ -167,9 +167,10 @@ def test_sphere_maps_are_written_for_figures_and_reproducible(tmp_path):
     assert np.array_equal(f, g) and x.shape == v.shape
     np.testing.assert_allclose(np.linalg.norm(x, axis=1), 1.0, atol=1e-6)  # float32 unit vectors
     names = [da.meta["Name"] for da in dist.darrays]
-    assert names == ["area_log_ratio", "angle_distortion_deg"]
-    lr, ang = (da.data for da in dist.darrays)
-    assert lr.shape == ang.shape == (len(v),) and np.all(ang >= 0)
+    assert names == ["area_log_ratio", "angle_distortion_deg", "shear_log_anisotropy"]
+    lr, ang, shear = (da.data for da in dist.darrays)
+    assert lr.shape == ang.shape == shear.shape == (len(v),) and np.all(ang >= 0)
+    assert np.all(shear >= 0) and np.all(np.isfinite(shear))  # log σ1/σ2 >= 0
     # the area map recomputed from the two saved meshes, a third of each face's area to
     # its vertices: trimesh's face areas on the surface, solid angles (Van Oosterom &
     # Strackee 1983) on the sphere; 1e-4: float32 storage of both meshes

@@ -22,11 +22,14 @@ and the left putamen.
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 
 import shapedesc.mesh.template_anatomy as template_anatomy
 import shapedesc.mesh.volume as volume
+from shapedesc.errors import ShearedMapWarning
 from shapedesc.sphere import map_to_sphere, pull_back
 
 # issue 4 acceptance: SD <= 0.10 for compact shapes (deep grey matter), <= 0.15 for a
@@ -37,6 +40,30 @@ _SD_TARGET = {"caudate_left": 0.10, "thalamus_left": 0.10, "putamen_left": 0.10,
 _TARGET_VERTICES = {"wm_left": 40000, "wm_right": 40000}
 _FULL = ["caudate_left", "thalamus_left", "putamen_left", "caudate_right", "thalamus_right",
          "putamen_right"]
+
+
+# Structures whose maps shear more than SPHERE_SHEARED_SHARE_WARN of their area beyond
+# SPHERE_SHEARED_ANISOTROPY (measured share: putamen L / R 7.7 / 8.8 %, caudates and
+# thalami 0.8–1.2 %): the putamens must warn, the compact nuclei must not. The
+# hemispheres are not asserted either way (left measured 4.5 %, right not measured).
+_SHEARED = {"putamen_left": True, "putamen_right": True, "caudate_left": False,
+            "caudate_right": False, "thalamus_left": False, "thalamus_right": False}
+
+
+def _map(surf, name):
+    """map_to_sphere with the ShearedMapWarning expected, forbidden or allowed per _SHEARED."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ShearedMapWarning)
+        m = map_to_sphere(surf.vertices, surf.faces, source=surf.source)
+    warned = [w for w in caught if issubclass(w.category, ShearedMapWarning)]
+    for w in caught:
+        if not issubclass(w.category, ShearedMapWarning):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    key = name.split(" ")[0]
+    if key in _SHEARED:
+        assert bool(warned) == _SHEARED[key], (name, m.qc.sheared_area_share)
+        assert (m.qc.sheared_area_share > 0.03) == _SHEARED[key], m.qc.sheared_area_share
+    return m
 
 
 def _surface(name, template_dir):
@@ -56,7 +83,7 @@ def test_template_structures_map_bijectively_with_low_distortion(template_dir, f
         e = np.unique(np.sort(np.concatenate([f[:, [0, 1]], f[:, [1, 2]], f[:, [2, 0]]]), axis=1),
                       axis=0)
         assert surf.n_vertices - len(e) + len(f) == 2
-        m = map_to_sphere(surf.vertices, surf.faces, source=name)
+        m = _map(surf, name)
         assert max(m.qc.flips_per_stage.values()) == 0, (name, m.qc.flips_per_stage)
         # a flip after the stereographic projection, even one the pole correction repairs,
         # sends the surface to the coarse-to-fine start (the rule in shapedesc.sphere.api;
@@ -81,7 +108,7 @@ def test_hemisphere_maps_bijectively_from_the_coarse_to_fine_start(template_dir,
 
 def _check_coarse_to_fine(name, template_dir):
     surf, _ = _surface(name, template_dir)
-    m = map_to_sphere(surf.vertices, surf.faces, source=name)
+    m = _map(surf, name)
     assert m.qc.initial_map == "coarse-to-fine"
     assert m.parameters["conformal_attempt"]["collapsed_faces"] > 0  # why it was needed
     assert max(m.qc.flips_per_stage.values()) == 0, m.qc.flips_per_stage
@@ -111,7 +138,7 @@ def test_decimated_copy_maps_bijectively(template_dir):
     surf, _ = volume.mask_to_surface(st.mask, st.affine, source="putamen_left (decimated)",
                                      evidence=st.evidence,
                                      target_vertices=int(0.6 * full.n_vertices))
-    m = map_to_sphere(surf.vertices, surf.faces, source="putamen_left (decimated)")
+    m = _map(surf, "putamen_left (decimated)")
     assert m.qc.initial_map == "coarse-to-fine"
     assert max(m.qc.flips_per_stage.values()) == 0, m.qc.flips_per_stage
     np.testing.assert_allclose(pull_back(m, surf.vertices, m.sphere_vertices),

@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 import trimesh
 
+from shapedesc.errors import ShearedMapWarning
 from shapedesc.shapes import bent_tube, ellipsoid, icosphere
 from shapedesc.sphere import map_to_sphere
 from shapedesc.sphere.conformal import sphere_face_det
@@ -48,7 +50,14 @@ def test_crowded_conformal_map_switches_to_coarse_to_fine():
     # a 30:1 ellipsoid: its conformal map compresses the ends by ~exp(−π·30/2) (conformal
     # crowding, Driscoll & Trefethen 2002 §2.6), far below double precision
     v, f = ellipsoid(30, 1, 1, 3)
-    m = map_to_sphere(v, f, source="needle.obj")
+    # an area-preserving map must shear such a needle strongly: on the sphere of equal area
+    # (radius R = sqrt(area/4π) ≈ 4.8) the loop around its middle, 2π long on the surface,
+    # must enclose half the area, so it is at least a great circle 2πR (spherical
+    # isoperimetric inequality, Schmidt 1943): stretched ~4.8x along the loop and, with the
+    # area kept, squeezed as much across it, ~23:1. The QC reports that and warns.
+    with pytest.warns(ShearedMapWarning, match="needle.obj"):
+        m = map_to_sphere(v, f, source="needle.obj")
+    assert m.qc.sheared_area_share > 0.03
     assert m.parameters["conformal_attempt"]["collapsed_faces"] > 0  # the fallback was needed
     assert m.qc.initial_map == "coarse-to-fine" == m.parameters["initial_map"]
     assert max(m.qc.flips_per_stage.values()) == 0, m.qc.flips_per_stage

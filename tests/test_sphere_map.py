@@ -136,9 +136,12 @@ def test_qc_record_and_per_vertex_values(maps):
     v, f, m = maps["bumpy"]
     row = m.qc.to_row()
     for key in ("n_flipped", "area_log_sd", "area_log_p01", "area_log_p99",
-                "angle_distortion_mean_deg", "seconds_total", "iterations",
-                "flips_mobius", "flips_final"):
+                "angle_distortion_mean_deg", "shear_anisotropy_p99", "sheared_area_share",
+                "seconds_total", "iterations", "flips_mobius", "flips_final"):
         assert key in row
+    assert row["sheared_area_share"] == 0.0 and row["shear_anisotropy_p99"] >= 1.0
+    assert m.vertex_shear_log_anisotropy.shape == (len(v),)
+    assert np.all(m.vertex_shear_log_anisotropy >= 0)
     assert row["seconds_total"] >= row["seconds_area"] > 0
     assert m.vertex_area_distortion.shape == (len(v),)
     assert m.vertex_angle_distortion_deg.shape == (len(v),)
@@ -418,6 +421,60 @@ def test_tail_continuation_only_where_a_face_is_beyond_u0(maps, monkeypatch):
     assert m0.qc.area_log_p01 < -u0 - 0.01
     assert m.qc.area_log_p01 > m0.qc.area_log_p01 + 0.005
     assert m.qc.area_log_sd < m0.qc.area_log_sd
+
+
+def test_shear_anisotropy_of_known_affine_maps():
+    # truth by construction: a triangle mapped by U·diag(σ1, σ2)·Vᵀ (any rotations U, V,
+    # any scale, placed in any plane of R³) has anisotropy σ1/σ2 (the singular value
+    # decomposition); the identity has 1
+    from scipy.spatial.transform import Rotation
+
+    from shapedesc.sphere import qc
+
+    rng = np.random.default_rng(7)
+    n = 50
+    tri = rng.normal(size=(n, 3, 2))  # random planar triangles
+    s1, s2 = rng.uniform(1, 30, n), rng.uniform(0.2, 1, n)
+    surf, img = np.zeros((n, 3, 3)), np.zeros((n, 3, 3))
+    for i in range(n):
+        ru, rv = (np.array([[np.cos(a), -np.sin(a)], [np.sin(a), np.cos(a)]])
+                  for a in rng.uniform(0, 2 * np.pi, 2))
+        J = ru @ np.diag([s1[i], s2[i]]) @ rv.T
+        q1, q2 = Rotation.random(2, random_state=100 + i).as_matrix()
+        surf[i] = np.c_[tri[i], np.zeros(3)] @ q1.T
+        img[i] = np.c_[tri[i] @ J.T, np.zeros(3)] @ q2.T * rng.uniform(0.01, 100) + rng.normal(size=3)
+    f = np.arange(3 * n).reshape(n, 3)
+    an = qc.shear_anisotropy(surf.reshape(-1, 3), img.reshape(-1, 3), f)
+    np.testing.assert_allclose(an, s1 / s2, rtol=1e-9)  # round-off of ill-shaped triangles
+    np.testing.assert_allclose(qc.shear_anisotropy(surf.reshape(-1, 3), surf.reshape(-1, 3), f),
+                               1.0, rtol=0, atol=1e-6)  # sqrt(k² − 1) of round-off k ≈ 1
+    # share above a threshold: the faces' own areas
+    area = 0.5 * np.linalg.norm(np.cross(surf[:, 1] - surf[:, 0], surf[:, 2] - surf[:, 0]), axis=1)
+    assert qc.sheared_area_share(surf.reshape(-1, 3), f, an, 10.0) == pytest.approx(
+        area[s1 / s2 > 10].sum() / area.sum(), rel=1e-12)
+
+
+def test_shear_anisotropy_agrees_with_the_energys_mips_distortion(maps):
+    # two independent formulas: the QC's singular values of the 2×2 Jacobian, and the
+    # area correction's cotangent form K = Σ cot θ_k |e_k|² / (2 det) (Hormann & Greiner
+    # 2000), which divides by det = 2·(chordal area)·h, h the distance of the chordal plane
+    # from the origin, where the MIPS identity has 4·(chordal area): so K·h = k, with
+    # σ1/σ2 = k + sqrt(k² − 1)
+    from shapedesc.sphere import qc
+
+    v, f, m = maps["ellipsoid 6:1:1"]
+    x = m.sphere_vertices
+    p = AreaProblem(v, f, shear_weight=0.12, what="t")
+    a, b, c = (x[f[:, k]] for k in range(3))
+    det = np.einsum("ij,ij->i", a, np.cross(b, c))
+    q = (p.cot[:, 0] * np.sum((c - b) ** 2, 1) + p.cot[:, 1] * np.sum((a - c) ** 2, 1)
+         + p.cot[:, 2] * np.sum((b - a) ** 2, 1))
+    n = np.cross(b - a, c - a)
+    h = np.abs(np.einsum("ij,ij->i", n / np.linalg.norm(n, axis=1, keepdims=True), a))
+    k = q / (2 * det) * h
+    np.testing.assert_allclose(qc.shear_anisotropy(v, x, f), k + np.sqrt(k * k - 1), rtol=1e-8)
+    # the 6:1 ellipsoid stays below the QC's threshold (its maximum, measured: ~5)
+    assert m.qc.sheared_area_share == 0.0 and 1.0 < m.qc.shear_anisotropy_p99 < 10.0
 
 
 def test_stall_with_a_collapsed_face_raises_instead_of_returning(monkeypatch):

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from shapedesc.defaults import SPHERE_SHEARED_SHARE_WARN
 from shapedesc.figures import style
 from shapedesc.figures.surfaces import View, _check_mesh, _draw, _project, view_by_name
 
@@ -26,6 +27,7 @@ CAPTION_FIELDS: tuple[tuple[str, str, str], ...] = (
     ("area_log_sd", "area log-SD {:.2f}", ""),
     ("angle_distortion_mean_deg", "angle {:.1f}", "°"),
     ("n_flipped", "flips {:.0f}", ""),
+    ("sheared_area_share", "sheared {:.1%}", ""),
 )
 
 
@@ -43,7 +45,7 @@ class QCThumbnail:
     caption : str
         Text under the thumbnail (see :func:`qc_caption`).
     warn : bool
-        Draw the caption in the warning colour (pose warning, flips).
+        Draw the caption in the warning colour (pose warning, flips, strong shear).
     fit_rms_mm : float
         Fit error used to order the gallery, worst first (NaN sorts last).
     """
@@ -61,8 +63,9 @@ def qc_caption(row: Mapping, *, note: str = "") -> tuple[str, bool]:
     """Caption text and warning flag from one ``qc.tsv`` row.
 
     Numbers are printed from the row as they are (formatted, not recomputed).  The flag
-    is set when the row has a non-empty ``pose_warning``, a positive ``n_flipped``, or
-    ``pose_unstable`` true.
+    is set when the row has a non-empty ``pose_warning``, a positive ``n_flipped``,
+    ``pose_unstable`` true, or a ``sheared_area_share`` above
+    ``defaults.SPHERE_SHEARED_SHARE_WARN`` (the map is not unique there).
 
     Parameters
     ----------
@@ -93,6 +96,10 @@ def qc_caption(row: Mapping, *, note: str = "") -> tuple[str, bool]:
         warn = True
     try:
         warn |= float(row.get("n_flipped", 0) or 0) > 0
+    except (TypeError, ValueError):
+        pass
+    try:  # NaN compares False
+        warn |= float(row.get("sheared_area_share", 0) or 0) > SPHERE_SHEARED_SHARE_WARN
     except (TypeError, ValueError):
         pass
     lines = [", ".join(parts[i:i + 2]) for i in range(0, len(parts), 2)]

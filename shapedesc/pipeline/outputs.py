@@ -8,8 +8,9 @@ Layout::
       spectra_mm2.tsv            same layout, energies in mm^2
       shape.tsv                  subject, structure, carried columns, scalar shape indices
       qc.tsv                     subject, structure, input, QC measures (map distortion,
-                                 flips, fit residuals, pose, repairs; ``volume_*`` from the
-                                 label-volume surface report), warnings; no timings
+                                 shear and ``sheared_area_share``, flips, fit residuals,
+                                 pose, repairs; ``volume_*`` from the label-volume surface
+                                 report), warnings; no timings
       failures.tsv               subject, structure, input, stage, error
       timings.tsv                subject, structure, status, CPU and wall seconds per stage
                                  (read, surface, prepare, map, describe, write, total) and
@@ -17,7 +18,7 @@ Layout::
       coefficients/<subject>_<structure>.npz   (+ its metadata file, if separate)
       coefficients/<subject>_<structure>_{surface,sphere}.surf.gii, _distortion.shape.gii
                                  with --sphere-maps only: the mapped surface, its sphere
-                                 map and per-vertex area/angle distortion (GIFTI, for
+                                 map and per-vertex area/angle/shear distortion (GIFTI, for
                                  figures; see pipeline.work.sphere_map_files)
       run.json                   parameters, versions, input SHA-256, counts
       .cache/                    per-item results for resuming (see pipeline.cache)

@@ -268,7 +268,9 @@ def sphere_map_files(surface, sphere_map) -> dict[str, bytes]:
     * ``_sphere.surf.gii``: the same vertices and triangles on the unit sphere;
     * ``_distortion.shape.gii``: per-vertex maps ``area_log_ratio`` (log of the sphere
       area share over the surface area share, barycentric vertex areas) and
-      ``angle_distortion_deg`` (mean absolute corner-angle change at the vertex).
+      ``angle_distortion_deg`` (mean absolute corner-angle change at the vertex) and
+      ``shear_log_anisotropy`` (mean over the vertex's faces of log σ₁/σ₂, how much more
+      the map stretches one direction than the other; 0 = shape kept).
 
     GIFTI stores float32 (the standard's only floating type): about 6e-8 on the unit
     sphere, enough to draw the map, not to recompute it (the map itself is float64).
@@ -297,7 +299,8 @@ def sphere_map_files(surface, sphere_map) -> dict[str, bytes]:
         write_surface(sphere, paths[1])
         write_vertex_data(paths[2], {
             "area_log_ratio": sphere_map.vertex_area_distortion,
-            "angle_distortion_deg": sphere_map.vertex_angle_distortion_deg})
+            "angle_distortion_deg": sphere_map.vertex_angle_distortion_deg,
+            "shear_log_anisotropy": sphere_map.vertex_shear_log_anisotropy})
         for sfx, path in zip(SPHERE_MAP_SUFFIXES, paths):
             files[sfx] = path.read_bytes()
     return files
