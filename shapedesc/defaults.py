@@ -202,13 +202,13 @@ SPHERE_SHEAR_KNEE: float = 4.0
 #: benchmarks/sphere_consistency.py): the share of surface area above 10 is 0.8–1.2 %
 #: for the caudates and thalami, whose maps of a re-meshed copy agree to 1.0–1.5 deg
 #: (mean), 7.7 / 8.8 % for the left / right putamen, whose copies' maps are 7.3 / 9.2 deg
-#: apart, and 4.5 % for the 40,000-vertex left WM hemisphere (7.8 deg); the synthetic
+#: apart, and 4.4 % for the 40,000-vertex left WM hemisphere (7.8 deg); the synthetic
 #: and demo shapes stay below 8 (MIPS K < 4).
 SPHERE_SHEARED_ANISOTROPY: float = 10.0
 #: ... and ``map_to_sphere`` warns (ShearedMapWarning; the pipeline writes it in
 #: qc.tsv) when more than this share of the surface area is that strongly sheared
 #: (dimensionless). 0.03 lies between the compact nuclei (<= 1.2 %) and the
-#: hemisphere and putamens (>= 4.5 %) measured above; only these structures were.
+#: hemisphere and putamens (>= 4.4 %) measured above; only these structures were.
 SPHERE_SHEARED_SHARE_WARN: float = 0.03
 #: Tail term of the area energy, ψ(u) = c·(|u| − u0)₊² of the face log area ratio u
 #: (shapedesc/sphere/area.py, "Tail of the area ratio"): u0, where the area penalty

@@ -53,7 +53,7 @@ What does work is not to ask one linear solve for the whole dynamic range:
    pure-area descent of their own vertices (:func:`_open_collapsed`), before the global
    relaxation below, which cannot open them (measured on a 40,000-vertex MNI
    hemisphere: one split in 29 halvings, 1e-11 rad wide; left to the relaxation it
-   ended at ~1e-13 rad and the fine solve stopped at area SD 0.73; opened: SD 0.073).
+   ended at ~1e-13 rad and the fine solve stopped at area SD 0.73; opened: SD 0.072).
    Whenever the mesh has grown by ``SPHERE_HIERARCHY_GROWTH`` since the last time, a
    few (``SPHERE_HIERARCHY_ITER``) iterations of the bijective pure-area correction
    (:mod:`.area` with ``w = 0``) on the current level even out the new, small
