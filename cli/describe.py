@@ -119,6 +119,9 @@ def run(args: argparse.Namespace) -> int:
           f"({result.n_cached} from the cache), {result.n_failed} failed; results in "
           f"{result.outdir}" + (f"; see {result.outdir / 'failures.tsv'}"
                                 if result.n_failed else ""))
+    if result.n_warned:
+        print(f"{result.n_warned} described item(s) have warnings: see the 'warnings' column "
+              f"of {result.outdir / 'qc.tsv'}")
     if result.n_failed > MAX_EXIT_FAILURES:
         print(f"exit status capped at {MAX_EXIT_FAILURES}", file=sys.stderr)
     return result.exit_status

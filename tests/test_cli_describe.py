@@ -124,3 +124,24 @@ def test_bids_folder(tmp_path):
         ("sub-01", "amygdala"), ("sub-02", "hippocampus")]
     # writing into the source dataset is refused, even with --force
     assert main(["-q", "describe", str(root), "-o", str(root), "--force"]) == 1
+
+
+def test_items_with_warnings_are_counted_in_the_summary(tmp_path, capsys):
+    # a 30:1 needle must be mapped with strong shear (shapedesc.sphere.api, "Strongly
+    # sheared maps"): described, with a ShearedMapWarning in qc.tsv, and the summary
+    # says how many items have warnings and where to read them (the symmetric needle
+    # and blob both also have PoseWarnings: sign of a near-zero third moment)
+    from shapedesc.shapes import ellipsoid
+
+    v, f = ellipsoid(30, 1, 1, 3)
+    a = _gifti(tmp_path / "in" / "sub-01_needle.surf.gii", trimesh.Trimesh(v, f, process=False))
+    b = _gifti(tmp_path / "in" / "sub-01_blob.surf.gii", _blob(0))
+    out = tmp_path / "out"
+    assert main(["-q", "describe", str(a), str(b), "-o", str(out), "--degree", "4"]) == 0
+    printed = capsys.readouterr().out
+    assert "2 described item(s) have warnings" in printed and str(out / "qc.tsv") in printed
+    qc = {r["structure"]: r for r in _read(out / "qc.tsv")}
+    assert "ShearedMapWarning" in qc["needle"]["warnings"]
+    assert "ShearedMapWarning" not in qc["blob"]["warnings"]
+    assert float(qc["needle"]["sheared_area_share"]) > 0.03
+    assert float(qc["blob"]["sheared_area_share"]) == 0.0

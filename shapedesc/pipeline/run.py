@@ -135,6 +135,9 @@ class StudyRun:
         Items that failed (rows of failures.tsv).
     failures : tuple of dict
         The failures.tsv rows.
+    n_warned : int
+        Described items whose ``qc.tsv`` row has warnings (e.g. a strongly sheared sphere
+        map, an unstable pose, a repaired surface).
     """
 
     outdir: Path
@@ -143,6 +146,7 @@ class StudyRun:
     n_computed: int
     n_failed: int
     failures: tuple[dict, ...] = field(default=())
+    n_warned: int = 0
 
     @property
     def exit_status(self) -> int:
@@ -427,4 +431,5 @@ def run_study(manifest: Manifest, outdir: str | Path, *,
     write_json(outdir / RUN_JSON, _run_json(params, manifest, hashes, len(failures)))
     fail_rows = tuple(tables["failures"][1])
     logger.info("%d described, %d failed; tables in %s", len(entries), len(failures), outdir)
-    return StudyRun(outdir, total, n_cached, len(tasks), len(failures), fail_rows)
+    n_warned = sum(1 for e in entries.values() if e["rows"]["qc"].get("warnings"))
+    return StudyRun(outdir, total, n_cached, len(tasks), len(failures), fail_rows, n_warned)
