@@ -52,7 +52,7 @@ structure       area share above 10  re-meshed copy, mean  largest amplitude Δ
 caudate L / R   0.85 % / 0.84 %      1.04° / 1.51°         0.21 / 0.21 mm
 thalamus L / R  1.22 % / 1.18 %      1.19° / 1.17°         0.35 / 0.49 mm
 putamen L / R   7.67 % / 8.78 %      7.32° / 9.24°         1.04 / 0.74 mm
-WM left (40k)   4.36 %               7.78°                 11.6 mm
+WM L / R (40k)  4.36 % / 4.90 %      7.78° / —             11.6 mm / —
 ==============  ===================  ====================  =====================
 
 (``benchmarks/sphere_consistency.py``, the hemisphere by the same recipe in a scratch
