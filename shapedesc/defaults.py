@@ -202,8 +202,9 @@ SPHERE_SHEAR_KNEE: float = 4.0
 #: benchmarks/sphere_consistency.py): the share of surface area above 10 is 0.8–1.2 %
 #: for the caudates and thalami, whose maps of a re-meshed copy agree to 1.0–1.5 deg
 #: (mean), 7.7 / 8.8 % for the left / right putamen, whose copies' maps are 7.3 / 9.2 deg
-#: apart, and 4.4 / 4.9 % for the 40,000-vertex WM hemispheres (left: 7.8 deg); the synthetic
-#: and demo shapes stay below 8 (MIPS K < 4).
+#: apart, and 4.4 / 4.9 % for the 40,000-vertex WM hemispheres (left: 7.8 deg); no face
+#: of the synthetic test shapes or the demo study comes near 10 (largest: 6:1 ellipsoid
+#: 4.6, demo study 6.1, level 4).
 SPHERE_SHEARED_ANISOTROPY: float = 10.0
 #: ... and ``map_to_sphere`` warns (ShearedMapWarning; the pipeline writes it in
 #: qc.tsv) when more than this share of the surface area is that strongly sheared
