@@ -102,6 +102,7 @@ def _transfer(points, vertices, faces, sphere_vertices, k=16):
     """Sphere positions (n, 3) at ``points`` (n, 3) on the surface (vertices, faces): the
     closest surface point (among the faces of the k nearest centroids), its barycentric
     coordinates, the map interpolated there and normalised; and the distances (mm)."""
+    import trimesh
     from scipy.spatial import cKDTree
 
     from shapedesc.mesh.distance import closest_point_on_triangles
@@ -117,14 +118,8 @@ def _transfer(points, vertices, faces, sphere_vertices, k=16):
         d = np.sum((q - points) ** 2, axis=1)
         better = d < best
         best[better], face[better], near[better] = d[better], fi[better], q[better]
-    a, b, c = (vertices[faces[face, m]] for m in range(3))
-    e0, e1, e2 = b - a, c - a, near - a
-    d00, d01, d11 = (e0 * e0).sum(1), (e0 * e1).sum(1), (e1 * e1).sum(1)
-    d20, d21 = (e2 * e0).sum(1), (e2 * e1).sum(1)
-    den = d00 * d11 - d01 * d01
-    l1, l2 = (d11 * d20 - d01 * d21) / den, (d00 * d21 - d01 * d20) / den
-    y = ((1 - l1 - l2)[:, None] * sphere_vertices[faces[face, 0]]
-         + l1[:, None] * sphere_vertices[faces[face, 1]] + l2[:, None] * sphere_vertices[faces[face, 2]])
+    bary = trimesh.triangles.points_to_barycentric(vertices[faces[face]], near)
+    y = np.einsum("nk,nki->ni", bary, sphere_vertices[faces[face]])
     return y / np.linalg.norm(y, axis=1, keepdims=True), np.sqrt(best)
 
 

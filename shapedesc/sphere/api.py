@@ -296,12 +296,8 @@ def map_to_sphere(vertices, faces, *, shear_weight: float = SPHERE_SHEAR_WEIGHT,
     aniso = _qc.shear_anisotropy(vn, xs, f)
     sheared = _qc.sheared_area_share(vn, f, aniso, SPHERE_SHEARED_ANISOTROPY)
     # per vertex: mean over its faces with a defined anisotropy (a degenerate surface
-    # triangle has none: inf); NaN only where no face at the vertex has one
-    ok = np.isfinite(aniso)
-    log_an = np.repeat(np.where(ok, np.log(np.where(ok, aniso, 1.0)), 0.0)[:, None], 3, axis=1)
-    n_ok = np.bincount(f.ravel(), weights=np.repeat(ok, 3).astype(float), minlength=len(v))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        v_shear = np.bincount(f.ravel(), weights=log_an.ravel(), minlength=len(v)) / n_ok
+    # triangle has none: inf, which vertex_mean leaves out)
+    v_shear = _qc.vertex_mean(f, np.repeat(np.log(aniso)[:, None], 3, axis=1), len(v))
     t4 = time.perf_counter()
     stages = {**stage_flips, "mobius": flips_mobius, "refinement": refine_flips,
               "area_correction": res.n_flipped_max, "final": n_flip}

@@ -24,6 +24,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..defaults import SPHERE_FLIP_DET
+from ..mesh.measures import face_areas
 
 __all__ = ["spherical_triangle_areas", "corner_angles", "face_log_area_ratio",
            "angle_distortion_deg", "shear_anisotropy", "sheared_area_share", "sphere_face_det",
@@ -114,8 +115,7 @@ def sheared_area_share(surface_vertices, faces, anisotropy: np.ndarray,
                        threshold: float) -> float:
     """Share of the surface area (0–1) in faces whose ``anisotropy`` (F,) exceeds
     ``threshold``."""
-    p = np.asarray(surface_vertices, dtype=np.float64)[np.asarray(faces)]
-    A = 0.5 * np.linalg.norm(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), axis=1)
+    A = face_areas(np.asarray(surface_vertices, dtype=np.float64), np.asarray(faces))
     return float(A[anisotropy > threshold].sum() / A.sum())
 
 
@@ -135,7 +135,15 @@ def count_flipped(sphere_vertices: np.ndarray, faces: np.ndarray) -> int:
 
 
 def vertex_mean(faces: np.ndarray, per_corner: np.ndarray, n_vertices: int) -> np.ndarray:
-    """Mean over the corners incident to each vertex of a (F, 3) per-corner value, shape (V,)."""
-    s = np.bincount(faces.ravel(), weights=per_corner.ravel(), minlength=n_vertices)
-    c = np.bincount(faces.ravel(), minlength=n_vertices)
-    return s / np.maximum(c, 1)
+    """Mean over the corners incident to each vertex of a (F, 3) per-corner value, shape (V,).
+
+    Non-finite corner values (e.g. the shear of a degenerate surface triangle, ``inf``)
+    are left out; a vertex with no finite value gets NaN (one without corners, 0).
+    """
+    ok = np.isfinite(per_corner).ravel()
+    s = np.bincount(faces.ravel(), weights=np.where(ok, per_corner.ravel(), 0.0),
+                    minlength=n_vertices)
+    c = np.bincount(faces.ravel(), weights=ok.astype(np.float64), minlength=n_vertices)
+    n = np.bincount(faces.ravel(), minlength=n_vertices)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(n > 0, s / c, 0.0)
