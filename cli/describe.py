@@ -60,7 +60,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--force", action="store_true",
                    help="replace results in OUTDIR made with other parameters")
     p.add_argument("--subject", metavar="ID",
-                   help="subject id for files named on the command line")
+                   help="subject id for files named on the command line; the structure "
+                        "is then the whole file name (less a first part equal to ID)")
     p.add_argument("--structure", nargs="+", metavar="NAME", dest="structures",
                    help="structure names: one per surface file, or one per --label value")
     p.add_argument("--subject-column", default="subject", metavar="NAME",

@@ -146,6 +146,19 @@ def test_empty_and_unreadable_manifests(tmp_path):
         read_manifest(tmp_path / "header.tsv")
 
 
+@pytest.mark.parametrize("name, expected", [
+    # with the subject given, a plain name is all structure (the putamen_left.ply of a
+    # single subject must not become structure "left"), less a first part equal to it
+    ("putamen_left.surf.gii", ("s9", "putamen_left")),
+    ("s9_left_putamen.ply", ("s9", "left_putamen")),
+    ("thalamus.stl", ("s9", "thalamus")),
+    # BIDS-style names keep their structure rule; the given subject wins
+    ("sub-01_hemi-L_label-caudate_surf.gii", ("s9", "L_caudate")),
+])
+def test_names_from_filename_with_the_subject_given(name, expected):
+    assert names_from_filename(name, "s9") == expected
+
+
 def test_files_on_the_command_line_become_an_implicit_manifest(tmp_path):
     a = _touch(tmp_path / "sub-01_arc.surf.gii")
     b = _touch(tmp_path / "sub-02_arc.surf.gii")
@@ -153,6 +166,10 @@ def test_files_on_the_command_line_become_an_implicit_manifest(tmp_path):
     assert [(it.subject, it.structure) for it in m.items] == [("sub-01", "arc"), ("sub-02", "arc")]
     m = manifest_from_files([str(a), str(b)], structures=["x", "y"], subject="s9")
     assert [(it.subject, it.structure) for it in m.items] == [("s9", "x"), ("s9", "y")]
+    c, d = _touch(tmp_path / "putamen_left.ply"), _touch(tmp_path / "caudate_left.ply")
+    m = manifest_from_files([str(c), str(d)], subject="s9")  # no "left" / "left" clash
+    assert [(it.subject, it.structure) for it in m.items] == [("s9", "caudate_left"),
+                                                              ("s9", "putamen_left")]
     with pytest.raises(ManifestError) as err:
         manifest_from_files([str(a), str(tmp_path / "gone.ply"), str(a)])
     msg = str(err.value)

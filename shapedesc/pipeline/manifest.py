@@ -132,7 +132,7 @@ def _stem(path: str | Path) -> str:
     return name.rsplit(".", 1)[0] if "." in name[1:] else name
 
 
-def names_from_filename(path: str | Path) -> tuple[str, str]:
+def names_from_filename(path: str | Path, subject: str | None = None) -> tuple[str, str]:
     """Subject and structure from a surface file name.
 
     The rule, applied to the name without its format ending (``.surf.gii``, ``.gii``,
@@ -150,32 +150,44 @@ def names_from_filename(path: str | Path) -> tuple[str, str]:
        the structure: ``P017_left_putamen.ply`` -> (``P017``, ``left_putamen``).
     3. A name with no ``_`` is the subject; the structure is ``surface``.
 
+    With ``subject`` given (``describe --subject``) the name need not carry the subject:
+    rules 2 and 3 then take the whole name as the structure, less a first part equal to
+    ``subject``: ``putamen_left.ply`` -> (``subject``, ``putamen_left``),
+    ``P017_left_putamen.ply`` with ``subject="P017"`` -> (``P017``, ``left_putamen``).
+    BIDS-style names keep rule 1's structure.
+
     Parameters
     ----------
     path : str or Path
+    subject : str, optional
+        The subject id, when the caller knows it.
 
     Returns
     -------
     subject, structure : str
     """
     parts = [p for p in _stem(path).split("_") if p]
+    if subject and not any(p.startswith("sub-") for p in parts):
+        rest = parts[1:] if parts and parts[0] == subject else parts
+        return subject, "_".join(rest) or "surface"
     if not parts:
-        return "", "surface"
+        return subject or "", "surface"
     sub_idx = next((i for i, p in enumerate(parts) if p.startswith("sub-")), None)
     if sub_idx is not None:
-        subject = parts[sub_idx]
+        subj = parts[sub_idx]
         rest = parts[:sub_idx] + parts[sub_idx + 1:]
         ses = next((p for p in rest if p.startswith("ses-")), None)
         if ses is not None:
-            subject = f"{subject}_{ses}"
+            subj = f"{subj}_{ses}"
             rest.remove(ses)
+        subj = subject or subj
         entities = {p.split("-", 1)[0]: p.split("-", 1)[1] for p in rest if "-" in p}
         plain = [p for p in rest if "-" not in p]
         core = entities.get("label") or (plain[-1] if plain else None)
         if core is None:
-            return subject, "surface"
+            return subj, "surface"
         hemi = entities.get("hemi")
-        return subject, f"{hemi}_{core}" if hemi else core
+        return subj, f"{hemi}_{core}" if hemi else core
     if len(parts) == 1:
         return parts[0], "surface"
     return parts[0], "_".join(parts[1:])
@@ -426,8 +438,7 @@ def manifest_from_files(paths: list[str | Path], *, labels: list[int] | None = N
     for p in paths:
         display = str(p)
         resolved = str(Path(p).expanduser().resolve())
-        subj, struct = names_from_filename(p)
-        subj = subject or subj
+        subj, struct = names_from_filename(p, subject)
         if input_kind(p) == "surface":
             if structures and surfaces and len(structures) == len(surfaces):
                 struct = next(s_iter)
