@@ -20,6 +20,7 @@ from shapedesc.io.surfaces import (
     read_surface,
     read_vertex_data,
     sniff_format,
+    surface_gifti_bytes,
     write_surface,
     write_vertex_data,
 )
@@ -57,6 +58,16 @@ def test_gifti_round_trip_float32(tmp_path, sphere, name):
     np.testing.assert_allclose(back.vertices, sphere.vertices, atol=F32_TOL_MM, rtol=0)
     # the file is also what nibabel (outside source) reads
     img = nib.load(str(p))
+    np.testing.assert_array_equal(img.agg_data("NIFTI_INTENT_TRIANGLE"), sphere.faces)
+
+
+def test_gifti_bytes_are_the_file_write_surface_writes(tmp_path, sphere, caplog):
+    # describe --sphere-maps: workers return these bytes; the main process writes them
+    with caplog.at_level("INFO", logger="shapedesc.io.surfaces"):
+        data = surface_gifti_bytes(sphere)
+    assert not caplog.records  # no "wrote ..." line naming a scratch path
+    assert data == write_surface(sphere, tmp_path / "s.surf.gii").read_bytes()
+    img = GiftiImage.from_bytes(data)  # nibabel (outside source) parses them
     np.testing.assert_array_equal(img.agg_data("NIFTI_INTENT_TRIANGLE"), sphere.faces)
 
 

@@ -439,6 +439,12 @@ def _gifti_surface_image(surface: Surface):
     return GiftiImage(darrays=[points, tris], meta=meta)
 
 
+def surface_gifti_bytes(surface: Surface) -> bytes:
+    """The GIFTI file :func:`write_surface` writes for ``surface``, as bytes (no file, no
+    log line): for workers that return their files to the process that writes them."""
+    return _gifti_surface_image(surface).to_bytes()
+
+
 def write_vertex_data(path: str | os.PathLike, arrays: dict[str, np.ndarray], *,
                       overwrite: bool = False) -> Path:
     """Write named per-vertex scalar maps as the data arrays of one GIFTI file (atomic).

@@ -287,22 +287,21 @@ def sphere_map_files(surface, sphere_map) -> dict[str, bytes]:
                               scalars=d["area_log_ratio"], scalar_label="log area ratio",
                               units="sphere/surface")
     """
-    from shapedesc.io.surfaces import write_surface, write_vertex_data
+    from shapedesc.io.surfaces import surface_gifti_bytes, write_vertex_data
     from shapedesc.surface import Surface
 
     sphere = Surface(vertices=sphere_map.sphere_vertices, faces=surface.faces,
                      source=f"{surface.source} (sphere map)", history=surface.history)
-    files: dict[str, bytes] = {}
+    s_surface, s_sphere, s_distortion = SPHERE_MAP_SUFFIXES
+    # bytes only: the calling process writes them (atomically) under their final names
+    files = {s_surface: surface_gifti_bytes(surface), s_sphere: surface_gifti_bytes(sphere)}
     with tempfile.TemporaryDirectory(prefix="shapedesc-") as tmp:
-        paths = [Path(tmp) / f"item{sfx}" for sfx in SPHERE_MAP_SUFFIXES]
-        write_surface(surface, paths[0])
-        write_surface(sphere, paths[1])
-        write_vertex_data(paths[2], {
+        path = Path(tmp) / f"item{s_distortion}"
+        write_vertex_data(path, {
             "area_log_ratio": sphere_map.vertex_area_distortion,
             "angle_distortion_deg": sphere_map.vertex_angle_distortion_deg,
             "shear_log_anisotropy": sphere_map.vertex_shear_log_anisotropy})
-        for sfx, path in zip(SPHERE_MAP_SUFFIXES, paths):
-            files[sfx] = path.read_bytes()
+        files[s_distortion] = path.read_bytes()
     return files
 
 
