@@ -105,13 +105,32 @@ def test_hemisphere_maps_bijectively_from_the_coarse_to_fine_start(template_dir,
     # (~130-140 s CPU each)
     for name in (["wm_left", "wm_right"] if full else ["putamen_left"]):
         _check_coarse_to_fine(name, template_dir)
+    if full:
+        # a re-meshed copy (midpoint-subdivided, decimated back to 40,000 vertices) of the
+        # right hemisphere: its coarse-to-fine start is poor (first fine solve stalled at
+        # area SD 0.64) and the tail continuation needed 3,919 iterations, beyond the
+        # former budget of 3,000 (ConvergenceError); measured SD 0.087, −0.26/0.26, ~450 s
+        import trimesh
+
+        from shapedesc.mesh.decimate import decimate
+        from shapedesc.surface import Surface
+
+        s, _ = _surface("wm_right", template_dir)
+        v, f = decimate(*trimesh.remesh.subdivide(s.vertices, s.faces), s.n_vertices)
+        _check_coarse_to_fine("wm_right (re-meshed)", template_dir,
+                              Surface(v, f, source="wm_right (re-meshed)"))
 
 
-def _check_coarse_to_fine(name, template_dir):
-    surf, _ = _surface(name, template_dir)
+def _check_coarse_to_fine(name, template_dir, surf=None):
+    attempt = "collapsed_faces"  # why the original surfaces need it (measured)
+    if surf is None:
+        surf, _ = _surface(name, template_dir)
+    else:
+        attempt = None  # a copy: any sign of crowding (flips or collapsed faces)
     m = _map(surf, name)
     assert m.qc.initial_map == "coarse-to-fine"
-    assert m.parameters["conformal_attempt"]["collapsed_faces"] > 0  # why it was needed
+    found = m.parameters["conformal_attempt"]
+    assert (found[attempt] > 0) if attempt else any(found.values()), found
     assert max(m.qc.flips_per_stage.values()) == 0, m.qc.flips_per_stage
     # degree one: signed solid angles (Van Oosterom & Strackee 1983) sum to 4π
     x, f = m.sphere_vertices, surf.faces
@@ -119,7 +138,7 @@ def _check_coarse_to_fine(name, template_dir):
     omega = 2 * np.arctan2(np.einsum("ij,ij->i", a, np.cross(b, c)),
                            1 + (a * b).sum(1) + (b * c).sum(1) + (c * a).sum(1))
     np.testing.assert_allclose(omega.sum(), 4 * np.pi, rtol=1e-10)  # round-off only
-    assert m.qc.area_log_sd <= _SD_TARGET[name], (name, m.qc.area_log_sd)
+    assert m.qc.area_log_sd <= _SD_TARGET[name.split(" ")[0]], (name, m.qc.area_log_sd)
     assert -0.3 <= m.qc.area_log_p01 and m.qc.area_log_p99 <= 0.3, (name, m.qc.to_row())
     # round trip exact at the vertices (mm; 1e-9 mm is far below any voxel)
     np.testing.assert_allclose(pull_back(m, surf.vertices, m.sphere_vertices),

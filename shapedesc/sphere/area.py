@@ -638,8 +638,9 @@ def correct_area(problem: AreaProblem, x0: np.ndarray, *, max_iter: int = SPHERE
         converged = True
     if not converged and raise_on_budget:
         raise ConvergenceError(f"{problem.what}: area correction did not converge in {max_iter} "
-                               f"iterations (energy {e_start:.4g} -> {e:.4g}); raise the budget "
-                               "or check the mesh for degenerate triangles")
+                               f"iterations (energy {e_start:.4g} -> {e:.4g}); check the mesh for "
+                               "degenerate triangles (shapedesc check), and if it has none "
+                               "please report this surface")
     n_flip = int(np.sum(problem.dets(x) <= 0))
     return AreaResult(x, it, e_start, e, n_flip)
 
