@@ -110,15 +110,8 @@ def test_hemisphere_maps_bijectively_from_the_coarse_to_fine_start(template_dir,
         # right hemisphere: its coarse-to-fine start is poor (first fine solve stalled at
         # area SD 0.64) and the tail continuation needed 3,919 iterations, beyond the
         # former budget of 3,000 (ConvergenceError); measured SD 0.087, −0.26/0.26, ~450 s
-        import trimesh
-
-        from shapedesc.mesh.decimate import decimate
-        from shapedesc.surface import Surface
-
-        s, _ = _surface("wm_right", template_dir)
-        v, f = decimate(*trimesh.remesh.subdivide(s.vertices, s.faces), s.n_vertices)
-        _check_coarse_to_fine("wm_right (re-meshed)", template_dir,
-                              Surface(v, f, source="wm_right (re-meshed)"))
+        copy = _remeshed(_surface("wm_right", template_dir)[0])
+        _check_coarse_to_fine(copy.source, template_dir, copy)
 
 
 def _check_coarse_to_fine(name, template_dir, surf=None):
@@ -190,3 +183,69 @@ def test_remeshed_copies_meet_the_targets_and_keep_the_shear_flag(template_dir, 
         assert m.qc.area_log_sd <= _SD_TARGET[name], (surf.source, m.qc.area_log_sd)
         assert -0.3 <= m.qc.area_log_p01 and m.qc.area_log_p99 <= 0.3, (surf.source,
                                                                         m.qc.to_row())
+
+
+def _remeshed(surf):
+    """The surface midpoint-subdivided (trimesh) and decimated back to its vertex count
+    (mesh.decimate): an independent triangulation of nearly the same surface."""
+    import trimesh
+
+    from shapedesc.mesh.decimate import decimate
+    from shapedesc.surface import Surface
+
+    v, f = decimate(*trimesh.remesh.subdivide(surf.vertices, surf.faces), surf.n_vertices)
+    return Surface(v, f, source=f"{surf.source} (re-meshed)")
+
+
+def _map_angles_deg(a, ma, b, mb):
+    """Angles (°) between map ``ma`` of surface ``a`` at its vertices and map ``mb`` of
+    the copy ``b`` read at their closest points on ``b`` (trimesh's closest-point
+    kernel, an outside source, over the faces of the 16 nearest centroids; barycentric
+    interpolation), after the best rotation (Kabsch 1976)."""
+    import trimesh
+    from scipy.spatial import cKDTree
+
+    tris = b.vertices[b.faces]
+    _, cand = cKDTree(tris.mean(axis=1)).query(a.vertices, k=16)
+    best, tri = np.full(a.n_vertices, np.inf), np.zeros(a.n_vertices, dtype=np.int64)
+    near = np.zeros_like(a.vertices)
+    for j in range(cand.shape[1]):
+        q = trimesh.triangles.closest_point(tris[cand[:, j]], a.vertices)
+        dist = np.sum((q - a.vertices) ** 2, axis=1)
+        better = dist < best
+        best[better], tri[better], near[better] = dist[better], cand[better, j], q[better]
+    w = trimesh.triangles.points_to_barycentric(tris[tri], near)
+    y = np.einsum("nk,nki->ni", w, mb.sphere_vertices[b.faces[tri]])
+    y /= np.linalg.norm(y, axis=1, keepdims=True)
+    x = ma.sphere_vertices
+    u, _, vt = np.linalg.svd(y.T @ x)
+    r = u @ np.diag([1.0, 1.0, np.sign(np.linalg.det(u @ vt))]) @ vt
+    return np.degrees(np.arccos(np.clip(np.einsum("ij,ij->i", x @ r.T, y), -1.0, 1.0)))
+
+
+@pytest.mark.slow
+def test_remeshed_compact_nuclei_give_nearly_the_same_map(template_dir):
+    # issue 4: "a re-triangulated copy gives nearly the same map", on real anatomy. The
+    # left caudate, and the left putamen's body: the template blob opened by a 2-voxel
+    # ball, which removes the claustral/insular grey-matter sheets the box-clipped blob
+    # carries (those sheets are why the blob's map is strongly sheared and not unique:
+    # its re-meshed copy is 6.5-9° away, see sphere/api.py). Measured mean / 99th pct:
+    # caudate 1.01° / 7.2°, putamen body 0.34° / 1.21° (0 % sheared). The bounds, 2° mean
+    # and 10° at the 99th percentile, leave 1.4-2x room over the caudate and lie far below
+    # the sheared blob (6.5° / 36.7°).
+    from scipy import ndimage as ndi
+
+    st = template_anatomy.template_structure("putamen_left", data_dir=template_dir)
+    ball = ndi.iterate_structure(ndi.generate_binary_structure(3, 1), 2)
+    lab, _ = ndi.label(ndi.binary_opening(st.mask, structure=ball), structure=np.ones((3,) * 3))
+    body = lab == np.argmax(np.bincount(lab.ravel())[1:]) + 1
+    putamen, _ = volume.mask_to_surface(body, st.affine, source="putamen-body_left",
+                                        evidence=st.evidence)
+    caudate, _ = _surface("caudate_left", template_dir)
+    for surf in (caudate, putamen):
+        copy = _remeshed(surf)
+        ma, mb = _map(surf, surf.source), _map(copy, copy.source)
+        assert ma.qc.sheared_area_share < 0.03 and mb.qc.sheared_area_share < 0.03
+        d = _map_angles_deg(surf, ma, copy, mb)
+        assert d.mean() < 2.0 and np.percentile(d, 99) < 10.0, (surf.source, d.mean(),
+                                                                 np.percentile(d, 99))
