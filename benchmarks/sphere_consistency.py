@@ -198,7 +198,8 @@ def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--subjects", type=int, default=10, help="demo arcs (default 10)")
     p.add_argument("--structures", nargs="+",
-                   default=["caudate_left", "thalamus_left", "putamen_left"])
+                   default=["caudate_left", "thalamus_left", "putamen_left",
+                            "putamen_body_left"])
     p.add_argument("--skip", nargs="*", default=[], choices=["starts", "retriangulated", "stop"])
     args = p.parse_args(argv)
     out = {}

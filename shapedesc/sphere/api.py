@@ -61,12 +61,12 @@ runs; the amplitude column includes the copy's geometry, up to 0.4 mm from the o
 The putamens' sheared parts are not putamen: the box-clipped grey-matter blob of
 :mod:`shapedesc.mesh.template_anatomy` carries sheets of claustral and insular grey
 matter. Opened by a 2-voxel ball (6-connected, iterated; parts thinner than ~4 mm go),
-the left putamen's body (4,353 of 6,604 voxels, 2,502 vertices) maps from the conformal
-start with 0 % sheared, area SD 0.045, and its re-meshed copy lies 0.34° away
-(amplitudes within 0.08 mm; right: the same), as compact as the caudate; a 1-voxel
-opening leaves a sheet (4.9 %, 9.1°). So on deep grey matter the warning mostly means
-a segmentation that leaks into thin neighbouring tissue; a white-matter hemisphere's
-gyral blades are thin by nature.
+the left putamen's body (``putamen_body_left``: 4,353 of 6,604 voxels, 2,502 vertices)
+maps from the conformal start with 0 % sheared, area SD 0.045, and its re-meshed copy
+lies 0.34° away (amplitudes within 0.08 mm; right: the same), as compact as the
+caudate; a 1-voxel opening leaves a sheet (4.9 %, 9.1°). So on deep grey matter the
+warning mostly means a segmentation that leaks into thin neighbouring tissue; a
+white-matter hemisphere's gyral blades are thin by nature.
 The putamens' patches with anisotropy above 20 have a median of 60–100; the largest
 (3–4 % of the area, left) separates an 11 % lobe from the rest. It is the energy, not
 the stop: on the left putamen two fine solves from the same start, with 10 and with 40
