@@ -9,6 +9,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 
@@ -35,3 +36,16 @@ def template_dir() -> Path:
     d = Path(nilearn.__file__).parent / "datasets" / "data"
     assert (d / "mni_icbm152_wm_tal_nlin_sym_09a_converted.nii.gz").exists()
     return d
+
+
+def _best_rotation(a, b):
+    """Proper rotation R (det +1) with a @ R.T ≈ b, both (n, 3) (Kabsch 1976,
+    doi:10.1107/S0567739476001873)."""
+    u, _, vt = np.linalg.svd(b.T @ a)
+    return u @ np.diag([1.0, 1.0, np.sign(np.linalg.det(u @ vt))]) @ vt
+
+
+@pytest.fixture(scope="session")
+def best_rotation():
+    """:func:`_best_rotation`, for the tests that compare sphere maps up to a rotation."""
+    return _best_rotation

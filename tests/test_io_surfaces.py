@@ -21,6 +21,7 @@ from shapedesc.io.surfaces import (
     read_vertex_data,
     sniff_format,
     surface_gifti_bytes,
+    vertex_data_gifti_bytes,
     write_surface,
     write_vertex_data,
 )
@@ -69,6 +70,9 @@ def test_gifti_bytes_are_the_file_write_surface_writes(tmp_path, sphere, caplog)
     assert data == write_surface(sphere, tmp_path / "s.surf.gii").read_bytes()
     img = GiftiImage.from_bytes(data)  # nibabel (outside source) parses them
     np.testing.assert_array_equal(img.agg_data("NIFTI_INTENT_TRIANGLE"), sphere.faces)
+    maps = {"area_log_ratio": np.linspace(-1, 1, sphere.n_vertices)}
+    assert (vertex_data_gifti_bytes(maps)
+            == write_vertex_data(tmp_path / "d.shape.gii", maps).read_bytes())
 
 
 def test_ply_round_trip_exact_and_trimesh_reads_it(tmp_path, sphere):

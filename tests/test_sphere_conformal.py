@@ -13,12 +13,6 @@ from shapedesc.sphere.laplacian import clamped_cotangent_laplacian, triangle_cot
 from shapedesc.sphere.mobius import hyperbolic_translation, mobius_centre
 
 
-def _kabsch(a, b):
-    """Best rotation R (det +1) with a @ R.T ≈ b (Kabsch 1976, doi:10.1107/S0567739476001873)."""
-    u, _, vt = np.linalg.svd(b.T @ a)
-    d = np.sign(np.linalg.det(u @ vt))
-    return u @ np.diag([1, 1, d]) @ vt
-
 
 def test_inverse_stereographic_closed_form():
     # closed form: z ↦ (2x, 2y, |z|²−1)/(1+|z|²); 0 → south pole, 1 → (1,0,0), i → (0,1,0)
@@ -77,13 +71,13 @@ def test_conformal_stages_do_not_flip(name, make):
     np.testing.assert_allclose(np.linalg.norm(r.sphere_vertices, axis=1), 1, atol=1e-14)
 
 
-def test_sphere_maps_to_rotation_of_itself():
+def test_sphere_maps_to_rotation_of_itself(best_rotation):
     # a conformal automorphism of the sphere that is Möbius-centred is a rotation
     # (Baden, Crane & Kazhdan 2018, §4); discretisation on level 4 leaves < 1e-2 rad
     v, f = icosphere(4)
     s = C.conformal_sphere_map(v, f).sphere_vertices
     x, _ = mobius_centre(s, vertex_areas(v, f), what="sphere")
-    R = _kabsch(v, x)
+    R = best_rotation(v, x)
     err = np.arccos(np.clip(np.einsum("ij,ij->i", v @ R.T, x), -1, 1))
     assert err.max() < 1e-2
 
@@ -102,7 +96,7 @@ def test_hyperbolic_translation_is_a_sphere_automorphism():
     np.testing.assert_allclose(hyperbolic_translation(x, np.zeros(3)), x, atol=1e-15)
 
 
-def test_mobius_centring_is_unique_up_to_rotation():
+def test_mobius_centring_is_unique_up_to_rotation(best_rotation):
     # Baden et al. 2018 / Douady–Earle: the centred representative of a Möbius orbit is
     # unique up to rotation; re-centring a Möbius-moved map recovers it (Newton to 1e-12;
     # the residual rotation-fitted error is ~1e-10, 1e-8 leaves room for conditioning)
@@ -114,6 +108,6 @@ def test_mobius_centring_is_unique_up_to_rotation():
     moved = hyperbolic_translation(x, np.array([0.4, 0.1, -0.3]))
     assert C.sphere_face_det(moved, f).min() > 0  # Möbius maps keep orientation
     y, _ = mobius_centre(moved, w, what="tube moved")
-    R = _kabsch(x, y)
+    R = best_rotation(x, y)
     # chord distance (arccos loses precision near 0)
     assert np.linalg.norm(x @ R.T - y, axis=1).max() < 1e-8

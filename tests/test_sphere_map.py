@@ -23,12 +23,6 @@ SHAPES = {
 }
 
 
-def _kabsch(a, b):
-    """Best rotation R (det +1) with a @ R.T ≈ b (Kabsch 1976, doi:10.1107/S0567739476001873)."""
-    u, _, vt = np.linalg.svd(b.T @ a)
-    d = np.sign(np.linalg.det(u @ vt))
-    return u @ np.diag([1, 1, d]) @ vt
-
 
 @pytest.fixture(scope="module")
 def maps():
@@ -87,16 +81,16 @@ def test_angle_distortion_elongated_and_shear_weight_balance(maps):
         m1.qc.angle_distortion_mean_deg
 
 
-def test_sphere_maps_to_itself_up_to_rotation(maps):
+def test_sphere_maps_to_itself_up_to_rotation(maps, best_rotation):
     v, f, m = maps["sphere"]
-    R = _kabsch(v, m.sphere_vertices)
+    R = best_rotation(v, m.sphere_vertices)
     # the round sphere's area-preserving conformal self-maps are rotations; 1e-3 covers
     # the O(h²) gap between chordal and spherical areas at level 4
     assert np.linalg.norm(v @ R.T - m.sphere_vertices, axis=1).max() < 1e-3
     assert m.qc.angle_distortion_mean_deg < 0.1
 
 
-def test_deterministic_and_rotation_invariant():
+def test_deterministic_and_rotation_invariant(best_rotation):
     v, f = bent_tube(6, 1, np.pi / 2, 3)
     a = map_to_sphere(v, f, source="tube")
     b = map_to_sphere(v.copy(), f.copy(), source="tube again")
@@ -105,13 +99,13 @@ def test_deterministic_and_rotation_invariant():
     q, _ = np.linalg.qr(rng.normal(size=(3, 3)))
     q *= np.sign(np.linalg.det(q))  # a proper rotation
     c = map_to_sphere(v @ q.T + [10.0, -3.0, 7.0], f, source="tube rotated")
-    R = _kabsch(a.sphere_vertices, c.sphere_vertices)
+    R = best_rotation(a.sphere_vertices, c.sphere_vertices)
     # the map is intrinsic: up to a rotation of the sphere the same (solver round-off
     # amplified by the line search: 1e-6 of the unit radius)
     assert np.linalg.norm(a.sphere_vertices @ R.T - c.sphere_vertices, axis=1).max() < 1e-6
 
 
-def test_retriangulated_copy_gives_nearly_the_same_map():
+def test_retriangulated_copy_gives_nearly_the_same_map(best_rotation):
     # the same smooth tube meshed at frequencies 12 and 15; vertex i of either mesh sits
     # over icosphere point i (the generator's natural parameterisation), which locates
     # each vertex of mesh B on mesh A
@@ -125,7 +119,7 @@ def test_retriangulated_copy_gives_nearly_the_same_map():
     fi, w = locate_on_sphere(sa, fa, sb)
     xa = np.einsum("nk,nki->ni", w, ma.sphere_vertices[fa[fi]])
     xa /= np.linalg.norm(xa, axis=1, keepdims=True)
-    R = _kabsch(xa, mb.sphere_vertices)
+    R = best_rotation(xa, mb.sphere_vertices)
     err = np.linalg.norm(xa @ R.T - mb.sphere_vertices, axis=1)
     # "nearly the same": mean deviation below 2 % of the unit radius (about the spacing
     # of the coarser mesh, 0.1), max below 10 %

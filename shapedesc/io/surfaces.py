@@ -463,19 +463,33 @@ def write_vertex_data(path: str | os.PathLike, arrays: dict[str, np.ndarray], *,
     -------
     Path
     """
-    from nibabel.gifti import GiftiDataArray, GiftiImage, GiftiMetaData
-
     path = Path(path)
     if not path.name.lower().endswith(".gii"):
         raise ValueError(f"{path}: per-vertex data is written as GIFTI; use a name ending in .gii")
+    image = _vertex_data_image(arrays, str(path))
+    with atomic_path(path, overwrite=overwrite) as tmp:
+        image.to_filename(str(tmp))
+    return path
+
+
+def vertex_data_gifti_bytes(arrays: dict[str, np.ndarray]) -> bytes:
+    """The GIFTI file :func:`write_vertex_data` writes for ``arrays``, as bytes (no file):
+    for workers that return their files to the process that writes them."""
+    return _vertex_data_image(arrays, "per-vertex data").to_bytes()
+
+
+def _vertex_data_image(arrays: dict[str, np.ndarray], what: str):
+    """GIFTI image of named (V,) maps (see :func:`write_vertex_data`); errors name ``what``."""
+    from nibabel.gifti import GiftiDataArray, GiftiImage, GiftiMetaData
+
     if not arrays:
-        raise ValueError(f"{path}: no arrays given; pass a dict name -> (V,) array")
+        raise ValueError(f"{what}: no arrays given; pass a dict name -> (V,) array")
     lengths = set()
     darrays = []
     for name, values in arrays.items():
         a = np.asarray(values)
         if a.ndim != 1:
-            raise ValueError(f"{path}: array {name!r} has shape {a.shape}; per-vertex maps must be (V,)")
+            raise ValueError(f"{what}: array {name!r} has shape {a.shape}; per-vertex maps must be (V,)")
         lengths.add(a.shape[0])
         if np.issubdtype(a.dtype, np.integer) or a.dtype == bool:
             a, ntype = a.astype(np.int32), "NIFTI_TYPE_INT32"
@@ -484,10 +498,8 @@ def write_vertex_data(path: str | os.PathLike, arrays: dict[str, np.ndarray], *,
         darrays.append(GiftiDataArray(a, intent="NIFTI_INTENT_NONE", datatype=ntype,
                                       meta=GiftiMetaData({"Name": str(name)})))
     if len(lengths) != 1:
-        raise ValueError(f"{path}: arrays have different lengths {sorted(lengths)}; all must be (V,)")
-    with atomic_path(path, overwrite=overwrite) as tmp:
-        GiftiImage(darrays=darrays).to_filename(str(tmp))
-    return path
+        raise ValueError(f"{what}: arrays have different lengths {sorted(lengths)}; all must be (V,)")
+    return GiftiImage(darrays=darrays)
 
 
 def read_vertex_data(path: str | os.PathLike, *,

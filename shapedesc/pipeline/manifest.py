@@ -171,7 +171,7 @@ def names_from_filename(path: str | Path, subject: str | None = None) -> tuple[s
         rest = parts[1:] if parts and parts[0] == subject else parts
         return subject, "_".join(rest) or "surface"
     if not parts:
-        return subject or "", "surface"
+        return "", "surface"
     sub_idx = next((i for i, p in enumerate(parts) if p.startswith("sub-")), None)
     if sub_idx is not None:
         subj = parts[sub_idx]

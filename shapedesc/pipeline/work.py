@@ -287,22 +287,18 @@ def sphere_map_files(surface, sphere_map) -> dict[str, bytes]:
                               scalars=d["area_log_ratio"], scalar_label="log area ratio",
                               units="sphere/surface")
     """
-    from shapedesc.io.surfaces import surface_gifti_bytes, write_vertex_data
+    from shapedesc.io.surfaces import surface_gifti_bytes, vertex_data_gifti_bytes
     from shapedesc.surface import Surface
 
     sphere = Surface(vertices=sphere_map.sphere_vertices, faces=surface.faces,
                      source=f"{surface.source} (sphere map)", history=surface.history)
     s_surface, s_sphere, s_distortion = SPHERE_MAP_SUFFIXES
     # bytes only: the calling process writes them (atomically) under their final names
-    files = {s_surface: surface_gifti_bytes(surface), s_sphere: surface_gifti_bytes(sphere)}
-    with tempfile.TemporaryDirectory(prefix="shapedesc-") as tmp:
-        path = Path(tmp) / f"item{s_distortion}"
-        write_vertex_data(path, {
-            "area_log_ratio": sphere_map.vertex_area_distortion,
-            "angle_distortion_deg": sphere_map.vertex_angle_distortion_deg,
-            "shear_log_anisotropy": sphere_map.vertex_shear_log_anisotropy})
-        files[s_distortion] = path.read_bytes()
-    return files
+    return {s_surface: surface_gifti_bytes(surface), s_sphere: surface_gifti_bytes(sphere),
+            s_distortion: vertex_data_gifti_bytes({
+                "area_log_ratio": sphere_map.vertex_area_distortion,
+                "angle_distortion_deg": sphere_map.vertex_angle_distortion_deg,
+                "shear_log_anisotropy": sphere_map.vertex_shear_log_anisotropy})}
 
 
 def _describe(task: dict, clock: _Clock) -> tuple[dict, dict[str, bytes], dict]:
